@@ -1,0 +1,133 @@
+"""A content-addressed cache of fitted embeddings, shared across runs and suites.
+
+An entry is named by a hash of everything that decides the embedding: the
+dataset's fingerprint, the method (for a plug-in also its package version and
+the bytes of its module file), its parameters, the output dimension, the seed,
+and the versions of the libraries that compute it.  Change any of them and the
+entry is simply not found.  Only the parent process writes entries (atomically);
+children only read.
+"""
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import json
+import logging
+import shutil
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import platformdirs
+
+from .cells import Cell
+from .manifest import package_versions
+from .store import write_json, write_npy
+
+log = logging.getLogger(__name__)
+
+#: Libraries whose version can change a fitted embedding.
+_RESULT_PACKAGES = ("foldbench", "numpy", "scipy", "scikit-learn")
+
+
+def default_cache_dir() -> Path:
+    """``$XDG_CACHE_HOME/foldbench`` or the platform's equivalent."""
+    return Path(platformdirs.user_cache_dir("foldbench", appauthor=False))
+
+
+@lru_cache(maxsize=None)
+def _plugin_identity(use: str) -> str:
+    module = use.split(":", 1)[0]
+    versions = package_versions((module,))
+    extra = {k: v for k, v in versions.items() if k not in package_versions()}
+    try:
+        spec = importlib.util.find_spec(module)
+        origin = spec.origin if spec else None
+        code = hashlib.sha256(Path(origin).read_bytes()).hexdigest()[:16] if origin else "?"
+    except (ImportError, OSError, ValueError):
+        code = "?"
+    return json.dumps({"packages": extra, "module_sha": code}, sort_keys=True)
+
+
+@lru_cache(maxsize=1)
+def _library_versions() -> str:
+    versions = package_versions()
+    return json.dumps({k: versions.get(k) for k in _RESULT_PACKAGES}, sort_keys=True)
+
+
+def cache_key(cell: Cell) -> str:
+    """The content address of a cell's embedding (32 hex characters)."""
+    doc = {
+        "data": cell.data_fingerprint,
+        "use": cell.use,
+        "plugin": _plugin_identity(cell.use) if ":" in cell.use else None,
+        "params": [[k, repr(v)] for k, v in cell.params],
+        "dimensions": cell.dimensions,
+        "seed": cell.seed,
+        "libraries": _library_versions(),
+    }
+    return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()[:32]
+
+
+@dataclass(frozen=True)
+class CacheEntry:
+    """A cached embedding with the cost of the fit that made it."""
+
+    embedding: np.ndarray
+    fit_seconds: float
+    fit_peak_mb: float
+
+
+@dataclass(frozen=True)
+class EmbeddingCache:
+    """The cache folder: ``<root>/<2 hex>/<key>.npy`` plus ``<key>.json``.
+
+    Parameters
+    ----------
+    root : Path
+        Folder of the cache (created on first write).
+    """
+
+    root: Path
+
+    def _paths(self, key: str) -> tuple[Path, Path]:
+        folder = self.root / key[:2]
+        return folder / f"{key}.npy", folder / f"{key}.json"
+
+    def get(self, cell: Cell) -> CacheEntry | None:
+        """The cached embedding of ``cell``, or ``None``."""
+        npy, meta = self._paths(cache_key(cell))
+        try:
+            info = json.loads(meta.read_text(encoding="utf-8"))
+            embedding = np.load(npy, allow_pickle=False)
+        except (OSError, ValueError):
+            return None
+        if embedding.shape[1:] != (cell.dimensions,):
+            return None
+        return CacheEntry(embedding, float(info.get("fit_seconds") or np.nan),
+                          float(info.get("fit_peak_mb") or np.nan))
+
+    def put(self, cell: Cell, embedding: np.ndarray, fit_seconds: float, fit_peak_mb: float) -> None:
+        """Store an embedding (the ``.npy`` first, its ``.json`` last, both atomically)."""
+        npy, meta = self._paths(cache_key(cell))
+        write_npy(npy, embedding)
+        write_json(meta, {"cell": {"dataset": cell.dataset, "method": cell.method, "use": cell.use,
+                                   "params": cell.params_text, "seed": cell.seed},
+                          "fit_seconds": fit_seconds, "fit_peak_mb": fit_peak_mb})
+
+    def info(self) -> dict[str, Any]:
+        """Number of entries and bytes used."""
+        entries = list(self.root.glob("*/*.json")) if self.root.is_dir() else []
+        size = sum(p.stat().st_size for p in self.root.rglob("*") if p.is_file()) if self.root.is_dir() else 0
+        return {"path": str(self.root), "entries": len(entries), "bytes": size}
+
+    def clear(self) -> int:
+        """Delete every entry; returns how many there were."""
+        count = self.info()["entries"]
+        if self.root.is_dir():
+            for child in self.root.iterdir():
+                if child.is_dir() and len(child.name) == 2:
+                    shutil.rmtree(child, ignore_errors=True)
+        return count

@@ -1,0 +1,129 @@
+"""Cells: one (dataset, method, parameters, seed) each, and the plan that lists them."""
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .datasets import Dataset
+from .methods import get_method_spec
+from .suite import Suite
+
+#: Bytes per float64 matrix entry times the dense n x n matrices such a method keeps at once
+#: (distances, weights, gradient terms); a rough, deliberately generous estimate.
+_QUADRATIC_MATRICES = 4
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One unit of work: fit one method on one dataset with one seed.
+
+    A cell is a plain, hashable value; :attr:`key` names its files, so a
+    finished cell is recognised and never computed twice.
+    """
+
+    dataset: str
+    method: str
+    use: str
+    params: tuple[tuple[str, Any], ...]
+    seed: int
+    dimensions: int
+    data_fingerprint: str
+
+    @property
+    def params_text(self) -> str:
+        """Compact text of the parameters, ``-`` when there are none."""
+        return ",".join(f"{k}={_short(v)}" for k, v in self.params) or "-"
+
+    @property
+    def key(self) -> str:
+        """Stable 16-hex name of the cell (hash of everything that defines it)."""
+        doc = json.dumps(asdict(self), sort_keys=True, default=str)
+        return hashlib.sha256(doc.encode()).hexdigest()[:16]
+
+    def params_dict(self) -> dict[str, Any]:
+        """Parameters as a dict."""
+        return dict(self.params)
+
+
+@dataclass
+class CellResult:
+    """What computing a cell produced; plain data handed from the runner to the store.
+
+    ``status`` is ``ok``, ``failed``, ``timeout``, ``crashed``, ``skipped`` or
+    ``interrupted`` (never stored: such a cell is computed again on resume).
+    """
+
+    cell: Cell
+    status: str
+    error: str = ""
+    detail: str = ""
+    embedding: np.ndarray | None = None
+    values: dict[str, float] = field(default_factory=dict)
+    halfwidths: dict[str, float] = field(default_factory=dict)
+    estimated: tuple[str, ...] = ()
+    curve: pd.DataFrame | None = None
+    fit_seconds: float = float("nan")
+    fit_peak_mb: float = float("nan")
+    score_seconds: float = float("nan")
+    from_cache: bool = False
+    warnings: tuple[str, ...] = ()
+
+
+def _short(value: Any) -> str:
+    return f"{value:g}" if isinstance(value, float) else str(value)
+
+
+def _canonical(params: dict[str, Any]) -> tuple[tuple[str, Any], ...]:
+    return tuple(sorted(params.items()))
+
+
+def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[CellResult]]:
+    """Expand a suite into cells.
+
+    Parameters
+    ----------
+    suite : Suite
+        The validated suite.
+    datasets : dict
+        Loaded datasets by name (from :func:`harness.suite.load_datasets`).
+
+    Returns
+    -------
+    cells : list of Cell
+        Cells to compute, ordered dataset, method, grid point, seed.
+    refused : list of CellResult
+        Cells that cannot run (a method that needs coordinates on a distance
+        matrix, or an n-squared method above the suite's size guard), each with
+        status ``skipped`` and the reason.
+    """
+    cells: list[Cell] = []
+    refused: list[CellResult] = []
+    for d in suite.datasets:
+        ds = datasets[d.name]
+        fp = ds.fingerprint()
+        for m in suite.methods:
+            spec = get_method_spec(m.use)
+            reason = _refusal(spec, ds, suite.run.quadratic_limit)
+            for point in m.grid_points():
+                for seed in suite.seeds:
+                    cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)
+                    if reason:
+                        refused.append(CellResult(cell, "skipped", reason))
+                    else:
+                        cells.append(cell)
+    return cells, refused
+
+
+def _refusal(spec: Any, ds: Dataset, quadratic_limit: int) -> str:
+    if ds.is_precomputed and not spec.accepts_distances:
+        return (f"{spec.name} needs feature coordinates; dataset '{ds.name}' is a distance matrix")
+    if spec.quadratic_memory and ds.n > quadratic_limit:
+        gib = _QUADRATIC_MATRICES * 8 * ds.n ** 2 / 2**30
+        return (f"{spec.name} keeps n x n matrices: n={ds.n} needs about {gib:.1f} GiB; "
+                f"raise run.quadratic_limit (now {quadratic_limit}) or --quadratic-limit to allow it")
+    return ""

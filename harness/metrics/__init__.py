@@ -1,0 +1,290 @@
+"""Quality measures of an embedding: neighbourhood, distance and label measures.
+
+Public API: :func:`score` (everything, with estimates and intervals where
+asked), :func:`evaluate` (one k, plain floats), :func:`coranking_curve`, the
+:class:`MeasureResult` it returns and the catalogue :data:`MEASURES`.
+
+Distances are Euclidean in both spaces, or read from a square matrix for the
+data when ``metric="precomputed"``.
+"""
+from __future__ import annotations
+
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from ._catalogue import MEASURES, MeasureInfo
+from ._distances import DistanceRows
+from ._global import JACKKNIFE_GROUPS, global_measures
+from ._labels import knn_accuracy, silhouette
+from ._local import PER_K, collect, curve_table, mean_interval
+from ._memory import block_rows, default_memory_bytes
+from ._ranks import rank_blocks
+
+__all__ = ["MEASURES", "MeasureInfo", "MeasureResult", "score", "evaluate", "coranking_curve"]
+
+log = logging.getLogger(__name__)
+
+_METRICS = ("euclidean", "precomputed")
+
+
+@dataclass(frozen=True)
+class MeasureResult:
+    """Values of the measures of one embedding.
+
+    Attributes
+    ----------
+    values : dict of str to float
+        Measure name (``@k`` appended for k-dependent ones) to value.
+    halfwidths : dict of str to float
+        95% confidence half-width of every value that is an estimate.
+    estimated : frozenset of str
+        Keys of ``values`` that are estimates rather than exact.
+    curve : pandas.DataFrame or None
+        Columns ``K``, ``Q_NX``, ``R_NX`` for K = 1..curve_k_max.
+    """
+
+    values: dict[str, float]
+    halfwidths: dict[str, float] = field(default_factory=dict)
+    estimated: frozenset[str] = frozenset()
+    curve: pd.DataFrame | None = None
+
+
+def _matrix(a: object, where: str) -> np.ndarray:
+    try:
+        arr = np.asarray(a, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise InputError(where, f"a numeric array ({exc})") from None
+    if arr.ndim != 2 or arr.shape[0] == 0 or arr.shape[1] == 0:
+        raise InputError(where, f"a non-empty 2-D array, got shape {arr.shape}")
+    if not np.isfinite(arr).all():
+        raise InputError(where, "finite numbers only (found NaN or infinity)")
+    return np.ascontiguousarray(arr)
+
+
+def _inputs(X: object, Y: object, metric: str) -> tuple[np.ndarray | None, np.ndarray | None, np.ndarray]:
+    if metric not in _METRICS:
+        raise InputError("metric", f"one of {', '.join(_METRICS)}, got {metric!r}")
+    x = _matrix(X, "X")
+    y = _matrix(Y, "Y")
+    n = y.shape[0]
+    if x.shape[0] != n:
+        raise InputError("Y", f"{x.shape[0]} rows like X, got {n}")
+    if metric == "precomputed":
+        if x.shape != (n, n):
+            raise InputError("X", f"a square distance matrix with metric='precomputed', got shape {x.shape}")
+        if (x < 0).any():
+            raise InputError("X", "non-negative distances")
+        if not np.allclose(x, x.T, rtol=1e-12, atol=0.0):
+            raise InputError("X", "a symmetric distance matrix")
+        return None, x, y
+    return x, None, y
+
+
+def _ks(ks: object, n: int) -> list[int]:
+    try:
+        values = [int(k) for k in ks]  # type: ignore[union-attr]
+    except (TypeError, ValueError):
+        raise InputError("ks", f"a list of integers, got {ks!r}") from None
+    if not values or any(int(k) != k for k in ks):  # type: ignore[union-attr]
+        raise InputError("ks", f"a non-empty list of integers, got {ks!r}")
+    for k in values:
+        # scikit-learn's trustworthiness refuses k >= n/2: its normaliser
+        # 2 / (n k (2n - 3k - 1)) keeps the value in [0, 1] only below that.
+        if not 1 <= k < n / 2:
+            raise InputError("ks", f"neighbourhood sizes with 1 <= k < n/2 = {n / 2:g}, got {k}")
+    return sorted(set(values))
+
+
+def _curve_k(curve_k_max: int | None, ks: Sequence[int], n: int) -> int:
+    k = max(ks) if curve_k_max is None else curve_k_max
+    if int(k) != k or not 1 <= k <= n - 2:
+        raise InputError("curve_k_max", f"an integer with 1 <= K <= n - 2 = {n - 2}, got {k}")
+    return int(k)
+
+
+def _vector_labels(labels: object, n: int) -> np.ndarray:
+    arr = np.asarray(labels)
+    if arr.ndim != 1 or len(arr) != n:
+        raise InputError("labels", f"one label per point ({n}), got shape {arr.shape}")
+    return arr
+
+
+def _local(x_points: np.ndarray | None, x_matrix: np.ndarray | None, y: np.ndarray,
+           ks: Sequence[int], k_curve: int, queries: np.ndarray, memory_bytes: int):
+    n = y.shape[0]
+    data = DistanceRows(points=x_points) if x_matrix is None else DistanceRows(matrix=x_matrix)
+    emb = DistanceRows(points=y)
+    fixed = data.nbytes + emb.nbytes + len(queries) * (len(PER_K) * len(ks) + 1) * 8
+    rows = block_rows(n, len(queries), memory_bytes, fixed)
+    k = max(max(ks, default=1), k_curve)
+    return collect(rank_blocks(data, emb, queries, k, rows), n, ks, k_curve)
+
+
+def score(X: object, Y: object, *, ks: Sequence[int], metric: str = "euclidean",
+          labels: object = None, latent: object = None, seed: int = 0,
+          pair_sample_above: int = 5000, n_pairs: int = 200_000,
+          estimate_above: int | None = None, n_queries: int = 2000,
+          memory_bytes: int | None = None, curve_k_max: int | None = None) -> MeasureResult:
+    """Score an embedding with every applicable measure.
+
+    Parameters
+    ----------
+    X : array-like of shape (n, d), or (n, n) with ``metric="precomputed"``
+        Data features, or a symmetric non-negative distance matrix.
+    Y : array-like of shape (n, q)
+        Embedding.
+    ks : sequence of int
+        Neighbourhood sizes, each ``1 <= k < n/2`` (the range in which
+        trustworthiness is normalised to [0, 1], as scikit-learn enforces).
+    metric : {"euclidean", "precomputed"}
+        How to read ``X``.  The embedding is always Euclidean.
+    labels : array-like of shape (n,), optional
+        Classes; adds ``knn_accuracy@k`` and, with at least 2 classes, ``silhouette``.
+    latent : array-like of shape (n, p), optional
+        True coordinates; adds ``latent_spearman``.
+    seed : int
+        Seed of every sample (query points, pairs, cross-validation folds).
+    pair_sample_above : int
+        Global measures are exact over all pairs up to this many points and
+        estimated from ``n_pairs`` sampled pairs above.
+    n_pairs : int
+        Pairs sampled for the global measures.
+    estimate_above : int or None
+        When given and ``n > estimate_above``, neighbourhood measures are
+        estimated from ``n_queries`` sampled points (exact ranks against all n
+        points).  ``None``: always exact.
+    n_queries : int
+        Sampled query points.
+    memory_bytes : int, optional
+        Memory budget of the neighbourhood engine; default a quarter of the
+        available memory, between 256 MiB and 8 GiB.
+    curve_k_max : int, optional
+        Largest K of the co-ranking curve and of ``rnx_auc``; default ``max(ks)``.
+
+    Returns
+    -------
+    MeasureResult
+
+    Raises
+    ------
+    harness.errors.InputError
+        Bad shapes, values or parameters.
+    ValueError
+        A measure is undefined for this input (e.g. all embedding points equal).
+    """
+    x_points, x_matrix, y = _inputs(X, Y, metric)
+    n = y.shape[0]
+    if n < 4:
+        raise InputError("X", f"at least 4 points, got {n}")
+    ks = _ks(ks, n)
+    k_curve = _curve_k(curve_k_max, ks, n)
+    if labels is not None:
+        labels = _vector_labels(labels, n)
+    if latent is not None:
+        latent = _matrix(latent, "latent")
+        if latent.shape[0] != n:
+            raise InputError("latent", f"{n} rows like X, got {latent.shape[0]}")
+    if n_pairs < 2 * JACKKNIFE_GROUPS:
+        raise InputError("n_pairs", f"at least {2 * JACKKNIFE_GROUPS}, got {n_pairs}")
+    if n_queries < 2:
+        raise InputError("n_queries", f"at least 2, got {n_queries}")
+    if memory_bytes is None:
+        memory_bytes = default_memory_bytes()
+    query_seed, pair_seed = np.random.SeedSequence(seed).spawn(2)
+
+    sampled = estimate_above is not None and n > estimate_above and n_queries < n
+    if sampled:
+        queries = np.sort(np.random.default_rng(query_seed).choice(n, n_queries, replace=False))
+        log.info("neighbourhood measures estimated from %d of %d points", n_queries, n)
+    else:
+        queries = np.arange(n)
+    local = _local(x_points, x_matrix, y, ks, k_curve, queries, memory_bytes)
+
+    values: dict[str, float] = {}
+    halfwidths: dict[str, float] = {}
+    for name in PER_K:
+        for k in ks:
+            key = f"{name}@{k}"
+            values[key], hw = mean_interval(local.terms[key], n if sampled else None)
+            if sampled:
+                halfwidths[key] = hw
+    values["rnx_auc"], hw = mean_interval(local.terms["rnx_auc"], n if sampled else None)
+    if sampled:
+        halfwidths["rnx_auc"] = hw
+
+    g_values, g_halfwidths = global_measures(
+        x_points, x_matrix, y, latent, pair_sample_above=pair_sample_above, n_pairs=n_pairs,
+        seed=int(pair_seed.generate_state(1)[0]), memory_bytes=memory_bytes)
+    values.update(g_values)
+    halfwidths.update(g_halfwidths)
+
+    if labels is not None:
+        for k in ks:
+            values[f"knn_accuracy@{k}"] = knn_accuracy(y, labels, k, seed)
+        if len(np.unique(labels)) >= 2:
+            values["silhouette"] = silhouette(y, labels, seed)
+
+    big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
+    curve = pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})
+    return MeasureResult(values, halfwidths, frozenset(halfwidths), curve)
+
+
+def evaluate(X: object, Y: object, k: int = 10, labels: object = None,
+             metric: str = "euclidean") -> dict[str, float]:
+    """Score an embedding at one neighbourhood size, with plain keys.
+
+    Parameters
+    ----------
+    X : array-like of shape (n, d), or (n, n) with ``metric="precomputed"``
+        Data features or distance matrix.
+    Y : array-like of shape (n, q)
+        Embedding.
+    k : int
+        Neighbourhood size (``1 <= k < n/2``); ``rnx_auc`` covers K = 1..k.
+    labels : array-like of shape (n,), optional
+        Classes; adds ``knn_accuracy`` and ``silhouette``.
+    metric : {"euclidean", "precomputed"}
+
+    Returns
+    -------
+    dict of str to float
+        ``trustworthiness``, ``continuity``, ``knn_recall``, ``stress``,
+        ``sammon_stress``, ``shepard_spearman``, ``mrre_data``,
+        ``mrre_embedding``, ``lcmc``, ``rnx_auc`` (and ``knn_accuracy``,
+        ``silhouette`` with labels).  Global measures are estimated from
+        sampled pairs above 5000 points, as in :func:`score`.
+    """
+    result = score(X, Y, ks=[k], labels=labels, metric=metric)
+    suffix = f"@{k}"
+    return {key.removesuffix(suffix): float(v) for key, v in result.values.items()}
+
+
+def coranking_curve(X: object, Y: object, k_max: int, metric: str = "euclidean") -> pd.DataFrame:
+    """Q_NX(K) and R_NX(K) for K = 1..k_max (Lee & Verleysen 2009).
+
+    Parameters
+    ----------
+    X : array-like of shape (n, d), or (n, n) with ``metric="precomputed"``
+    Y : array-like of shape (n, q)
+    k_max : int
+        ``1 <= k_max <= n - 2``.
+    metric : {"euclidean", "precomputed"}
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``K``, ``Q_NX``, ``R_NX``.
+    """
+    x_points, x_matrix, y = _inputs(X, Y, metric)
+    n = y.shape[0]
+    if n < 4:
+        raise InputError("X", f"at least 4 points, got {n}")
+    k_curve = _curve_k(k_max, [1], n)
+    local = _local(x_points, x_matrix, y, [], k_curve, np.arange(n), default_memory_bytes())
+    big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
+    return pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})

@@ -1,0 +1,400 @@
+"""Statistics over seeds and datasets: intervals, stability, rank tests, fronts.
+
+Everything here takes plain arrays or tables and returns plain values, so the
+report and the command line can share it and the tests can hold it against SciPy.
+
+Sources
+-------
+- Friedman test and Nemenyi critical difference: Demšar (2006), "Statistical
+  comparisons of classifiers over multiple data sets", JMLR 7.
+- Percentile bootstrap: Efron and Tibshirani (1993), "An Introduction to the Bootstrap".
+- Procrustes disparity: ``scipy.spatial.procrustes`` (Gower 1975).
+"""
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats as _sps
+from scipy.spatial import procrustes
+from sklearn.neighbors import NearestNeighbors
+
+from .errors import InputError
+
+#: Resamples of the percentile bootstrap; enough for stable 2.5% / 97.5% quantiles.
+BOOTSTRAP_RESAMPLES = 4000
+
+
+# ---------------------------------------------------------------- seeds
+
+def bootstrap_interval(values: Sequence[float] | np.ndarray, *, level: float = 0.95,
+                       resamples: int = BOOTSTRAP_RESAMPLES, seed: int = 0) -> tuple[float, float]:
+    """Percentile bootstrap interval of the mean.
+
+    Parameters
+    ----------
+    values : array-like of float
+        One value per seed; NaN values are left out.
+    level : float
+        Coverage of the interval (0.95 for a 95% interval).
+    resamples : int
+        Bootstrap resamples.
+    seed : int
+        Seed of the resampling, so the same scores always give the same interval.
+
+    Returns
+    -------
+    (low, high) : tuple of float
+        ``(nan, nan)`` with fewer than two values: one seed says nothing about spread.
+    """
+    x = np.asarray(values, dtype=float)
+    x = x[np.isfinite(x)]
+    if x.size < 2:
+        return (math.nan, math.nan)
+    rng = np.random.default_rng(seed)
+    means = x[rng.integers(0, x.size, size=(resamples, x.size))].mean(axis=1)
+    tail = (1.0 - level) / 2.0
+    low, high = np.quantile(means, [tail, 1.0 - tail])
+    return (float(low), float(high))
+
+
+def seed_statistics(scores: pd.DataFrame, measures: Sequence[str], *, level: float = 0.95,
+                    seed: int = 0) -> pd.DataFrame:
+    """Mean, standard deviation and bootstrap interval of each measure over seeds.
+
+    Parameters
+    ----------
+    scores : DataFrame
+        A row per cell with ``dataset, method, params, seed, status`` and the measure columns.
+    measures : sequence of str
+        Measure columns to describe.
+    level : float
+        Coverage of the bootstrap interval.
+    seed : int
+        Seed of the bootstrap.
+
+    Returns
+    -------
+    DataFrame
+        A row per ``dataset, method, params`` with ``seeds`` (ok seeds) and, per
+        measure ``m``: ``m`` (mean), ``m_sd`` (sample sd, ddof=1), ``m_lo`` and ``m_hi``
+        (interval; NaN with one seed).
+    """
+    config = ["dataset", "method", "params"]
+    ok = scores[scores["status"] == "ok"]
+    rows = []
+    for key, group in ok.groupby(config, sort=False):
+        row: dict[str, object] = dict(zip(config, key))
+        row["seeds"] = len(group)
+        for m in measures:
+            if m not in group:
+                continue
+            v = group[m].to_numpy(dtype=float)
+            finite = v[np.isfinite(v)]
+            row[m] = float(finite.mean()) if finite.size else math.nan
+            row[f"{m}_sd"] = float(finite.std(ddof=1)) if finite.size > 1 else math.nan
+            row[f"{m}_lo"], row[f"{m}_hi"] = bootstrap_interval(finite, level=level, seed=seed)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def knn_overlap(a: np.ndarray, b: np.ndarray, k: int, *, queries: np.ndarray | None = None) -> float:
+    """Mean share of the k nearest neighbours two embeddings of the same points agree on.
+
+    Parameters
+    ----------
+    a, b : ndarray of shape (n, d)
+        Two embeddings of the same n points (rows match).
+    k : int
+        Neighbourhood size (the point itself is not its own neighbour).
+    queries : ndarray of int, optional
+        Indices of the points whose neighbourhoods are compared (all when omitted).
+
+    Returns
+    -------
+    float
+        In [0, 1]; 1 when every point has the same k neighbours in both.
+    """
+    n = a.shape[0]
+    if b.shape[0] != n:
+        raise InputError("embeddings", f"expected the same number of rows, got {n} and {b.shape[0]}")
+    if not 1 <= k < n:
+        raise InputError("k", f"expected 1 <= k < n = {n}, got {k}")
+    idx = np.arange(n) if queries is None else np.asarray(queries)
+    sets = []
+    for emb in (a, b):
+        nn = NearestNeighbors(n_neighbors=k + 1).fit(emb)
+        neigh = nn.kneighbors(emb[idx], return_distance=False)
+        sets.append(_drop_self(neigh, idx, k))
+    shared = [np.intersect1d(x, y, assume_unique=True).size for x, y in zip(*sets)]
+    return float(np.mean(shared) / k)
+
+
+def _drop_self(neigh: np.ndarray, idx: np.ndarray, k: int) -> list[np.ndarray]:
+    # Duplicated points can push a point out of its own first slot, so remove it by index.
+    out = []
+    for row, i in zip(neigh, idx):
+        row = row[row != i]
+        out.append(row[:k])
+    return out
+
+
+@dataclass(frozen=True)
+class Stability:
+    """How much an embedding moves between seeds.
+
+    Attributes
+    ----------
+    knn_overlap : float
+        Mean over seed pairs of :func:`knn_overlap` (1 = the same neighbourhoods).
+    procrustes : float
+        Mean over seed pairs of the Procrustes disparity after the best translation,
+        scaling, rotation and reflection (0 = the same shape).
+    pairs : int
+        Seed pairs compared.
+    sampled : bool
+        Neighbourhoods were compared on sampled query points (an estimate).
+    """
+
+    knn_overlap: float
+    procrustes: float
+    pairs: int
+    sampled: bool = False
+
+
+def embedding_stability(embeddings: Sequence[np.ndarray], k: int, *, max_queries: int = 2000,
+                        seed: int = 0) -> Stability:
+    """Agreement between the embeddings that different seeds gave the same data.
+
+    Parameters
+    ----------
+    embeddings : sequence of ndarray of shape (n, d)
+        One embedding per seed, rows in the same order.
+    k : int
+        Neighbourhood size for the overlap.
+    max_queries : int
+        Above this many points the overlap is estimated on this many sampled points.
+    seed : int
+        Seed of that sample.
+
+    Returns
+    -------
+    Stability
+        NaN values when fewer than two embeddings are given.
+    """
+    embs = [np.asarray(e, dtype=float) for e in embeddings]
+    if len(embs) < 2:
+        return Stability(math.nan, math.nan, 0)
+    n = embs[0].shape[0]
+    queries = None
+    if n > max_queries:
+        queries = np.sort(np.random.default_rng(seed).choice(n, size=max_queries, replace=False))
+    overlaps, disparities = [], []
+    for a, b in itertools.combinations(embs, 2):
+        overlaps.append(knn_overlap(a, b, k, queries=queries))
+        disparities.append(_disparity(a, b))
+    return Stability(float(np.mean(overlaps)), float(np.nanmean(disparities))
+                     if np.isfinite(disparities).any() else math.nan,
+                     len(overlaps), queries is not None)
+
+
+def _disparity(a: np.ndarray, b: np.ndarray) -> float:
+    try:
+        return float(procrustes(a, b)[2])
+    except ValueError:
+        # A collapsed embedding (all points equal) has no shape to match.
+        return math.nan
+
+
+# ---------------------------------------------------------------- ranks and tests
+
+def rank_blocks(values: np.ndarray, higher_is_better: bool = True) -> np.ndarray:
+    """Rank the treatments within each block (row); 1 = best, ties share the average rank.
+
+    Parameters
+    ----------
+    values : ndarray of shape (n_blocks, n_treatments)
+    higher_is_better : bool
+
+    Returns
+    -------
+    ndarray of the same shape
+        The same as ``scipy.stats.rankdata(-values, axis=1)`` when higher is better.
+    """
+    v = np.asarray(values, dtype=float)
+    return _sps.rankdata(-v if higher_is_better else v, method="average", axis=1)
+
+
+@dataclass(frozen=True)
+class FriedmanResult:
+    """Friedman test over blocks (datasets) and treatments (methods).
+
+    Attributes
+    ----------
+    statistic : float
+        Friedman's chi-square, with the correction for ties.
+    pvalue : float
+        From the chi-square distribution with k - 1 degrees of freedom.
+    iman_davenport : float
+        Iman and Davenport's F form of the statistic (less conservative, Demšar 2006).
+    iman_davenport_pvalue : float
+        From F with (k - 1, (k - 1)(N - 1)) degrees of freedom.
+    mean_ranks : ndarray
+        Mean rank of each treatment over the blocks.
+    n_blocks, n_treatments : int
+    """
+
+    statistic: float
+    pvalue: float
+    iman_davenport: float
+    iman_davenport_pvalue: float
+    mean_ranks: np.ndarray
+    n_blocks: int
+    n_treatments: int
+
+
+def friedman_test(ranks: np.ndarray) -> FriedmanResult:
+    """Friedman test on within-block ranks.
+
+    Parameters
+    ----------
+    ranks : ndarray of shape (N, k)
+        Ranks of k treatments in each of N blocks (see :func:`rank_blocks`).
+
+    Returns
+    -------
+    FriedmanResult
+
+    Raises
+    ------
+    InputError
+        With fewer than 2 blocks or 3 treatments: the test needs both.
+    """
+    r = np.asarray(ranks, dtype=float)
+    if r.ndim != 2 or r.shape[0] < 2 or r.shape[1] < 3:
+        raise InputError("ranks", "the Friedman test needs at least 2 datasets and 3 methods, "
+                                  f"got {r.shape[0] if r.ndim == 2 else 0} and "
+                                  f"{r.shape[1] if r.ndim == 2 else 0}")
+    n, k = r.shape
+    mean_ranks = r.mean(axis=0)
+    chi2, _ = friedman_from_mean_ranks(mean_ranks, n)
+    # Tie correction as in Hollander and Wolfe (and SciPy); 1 when no block has ties.
+    ties = 0.0
+    for row in r:
+        _, counts = np.unique(row, return_counts=True)
+        ties += float(np.sum(counts ** 3 - counts))
+    chi2 /= 1.0 - ties / (k * (k * k - 1) * n)
+    p = float(_sps.chi2.sf(chi2, k - 1))
+    f = _iman_davenport(chi2, n, k)
+    pf = float(_sps.f.sf(f, k - 1, (k - 1) * (n - 1))) if math.isfinite(f) else 0.0
+    return FriedmanResult(float(chi2), p, float(f), pf, mean_ranks, n, k)
+
+
+def friedman_from_mean_ranks(mean_ranks: Sequence[float], n_blocks: int) -> tuple[float, float]:
+    """Friedman's chi-square and Iman and Davenport's F from mean ranks (no tie correction).
+
+    chi2_F = 12N / (k(k+1)) * (sum R_j^2 - k(k+1)^2 / 4) and
+    F_F = (N-1) chi2_F / (N(k-1) - chi2_F), as written in Demšar (2006).
+
+    Parameters
+    ----------
+    mean_ranks : sequence of float
+        Mean rank R_j of each of the k treatments.
+    n_blocks : int
+        Number of blocks N.
+
+    Returns
+    -------
+    (chi2_F, F_F) : tuple of float
+    """
+    r = np.asarray(mean_ranks, dtype=float)
+    k = r.size
+    chi2 = 12.0 * n_blocks / (k * (k + 1)) * (np.sum(r ** 2) - k * (k + 1) ** 2 / 4.0)
+    return float(chi2), _iman_davenport(float(chi2), n_blocks, k)
+
+
+def _iman_davenport(chi2: float, n: int, k: int) -> float:
+    denom = n * (k - 1) - chi2
+    return (n - 1) * chi2 / denom if denom > 0 else math.inf
+
+
+def nemenyi_q(k: int, alpha: float = 0.05) -> float:
+    """Critical value q_alpha of the Nemenyi test for k treatments.
+
+    The Studentized range quantile with infinite degrees of freedom divided by
+    sqrt(2) (Demšar 2006, Table 5a).
+    """
+    if k < 2:
+        raise InputError("k", f"expected at least 2 methods, got {k}")
+    return float(_sps.studentized_range.ppf(1.0 - alpha, k, np.inf) / math.sqrt(2.0))
+
+
+def critical_difference(k: int, n_blocks: int, alpha: float = 0.05) -> float:
+    """Nemenyi critical difference of mean ranks: q_alpha sqrt(k(k+1) / (6N)) (Demšar 2006)."""
+    if n_blocks < 1:
+        raise InputError("datasets", f"expected at least 1 dataset, got {n_blocks}")
+    return nemenyi_q(k, alpha) * math.sqrt(k * (k + 1) / (6.0 * n_blocks))
+
+
+def indistinct_groups(mean_ranks: Sequence[float], cd: float) -> list[tuple[int, ...]]:
+    """Maximal runs of treatments whose mean ranks differ by less than ``cd``.
+
+    Parameters
+    ----------
+    mean_ranks : sequence of float
+    cd : float
+        Critical difference.
+
+    Returns
+    -------
+    list of tuple of int
+        Indices into ``mean_ranks``, each tuple sorted best first; only groups of
+        two or more, none contained in another.
+    """
+    r = np.asarray(mean_ranks, dtype=float)
+    order = np.argsort(r, kind="stable")
+    groups: list[tuple[int, ...]] = []
+    last_end = -1
+    for i in range(len(order)):
+        j = i
+        while j + 1 < len(order) and r[order[j + 1]] - r[order[i]] < cd:
+            j += 1
+        if j > i and j > last_end:
+            groups.append(tuple(int(x) for x in order[i:j + 1]))
+            last_end = j
+    return groups
+
+
+# ---------------------------------------------------------------- fronts
+
+def pareto_front(quality: Sequence[float], cost: Sequence[float], *,
+                 higher_is_better: bool = True) -> np.ndarray:
+    """Points no other point beats on both quality and cost.
+
+    Parameters
+    ----------
+    quality : sequence of float
+    cost : sequence of float
+        Lower is better (fit seconds).
+    higher_is_better : bool
+        Direction of ``quality``.
+
+    Returns
+    -------
+    ndarray of bool
+        True for points on the front; NaN points are never on it.
+    """
+    q = np.asarray(quality, dtype=float)
+    c = np.asarray(cost, dtype=float)
+    if not higher_is_better:
+        q = -q
+    valid = np.isfinite(q) & np.isfinite(c)
+    front = np.zeros(q.size, dtype=bool)
+    for i in np.flatnonzero(valid):
+        other = valid & (q >= q[i]) & (c <= c[i]) & ((q > q[i]) | (c < c[i]))
+        front[i] = not other.any()
+    return front

@@ -1,0 +1,69 @@
+"""Plug-in methods that misbehave on purpose, for runner tests (plumbing only)."""
+from __future__ import annotations
+
+import os
+import time
+
+import numpy as np
+
+
+class _Base:
+    def __init__(self, n_components: int = 2, random_state: int | None = None) -> None:
+        self.n_components = n_components
+        self.random_state = random_state
+
+    def _first_columns(self, X: np.ndarray) -> np.ndarray:
+        return np.asarray(X, dtype=float)[:, : self.n_components].copy()
+
+
+class Raises(_Base):
+    """Raises an ordinary exception in fit_transform."""
+
+    def fit_transform(self, X):
+        raise RuntimeError("this plug-in always fails")
+
+
+class Sleeps(_Base):
+    """Sleeps longer than any sensible time limit."""
+
+    def __init__(self, n_components: int = 2, random_state: int | None = None, seconds: float = 60.0):
+        super().__init__(n_components, random_state)
+        self.seconds = seconds
+
+    def fit_transform(self, X):
+        time.sleep(self.seconds)
+        return self._first_columns(X)
+
+
+class Exits(_Base):
+    """Kills its own process without a word, as a segfault or an OOM kill would."""
+
+    def fit_transform(self, X):
+        os._exit(3)
+
+
+class RunsOutOfMemory(_Base):
+    """Raises MemoryError, as a failed large allocation does."""
+
+    def fit_transform(self, X):
+        raise MemoryError()
+
+
+class FirstColumns(_Base):
+    """Keeps the first columns: a cheap, deterministic embedding."""
+
+    def fit_transform(self, X):
+        return self._first_columns(X)
+
+
+class Noisy(_Base):
+    """The first columns plus seeded noise of a chosen size (a method made worse on purpose)."""
+
+    def __init__(self, n_components: int = 2, random_state: int | None = None, noise: float = 0.0):
+        super().__init__(n_components, random_state)
+        self.noise = noise
+
+    def fit_transform(self, X):
+        rng = np.random.default_rng(self.random_state)
+        Y = self._first_columns(X)
+        return Y + self.noise * Y.std() * rng.standard_normal(Y.shape)

@@ -1,0 +1,176 @@
+"""The report of a small real run: files, tables, page, figures (plumbing on invented data)."""
+from __future__ import annotations
+
+import base64
+import io
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from PIL import Image
+
+from harness.pipeline import run_suite
+from harness.report import FIGURES, write_report
+from harness.report.analysis import analyse
+from harness.report.tables import best_mask, measure_table, tex_escape
+from harness.report.verdict import verdict
+from harness.stats import critical_difference
+from harness.suite import parse_suite
+
+SUITE = """
+name: tiny
+seeds: 2
+datasets:
+  - use: iris
+  - use: rolled_sheet
+    name: roll
+    params: {n: 150, noise: 0.05}
+methods:
+  - use: pca
+  - use: random_projection
+  - use: isomap
+    grid: {n_neighbors: [6, 12]}
+  - use: tsne
+    params: {perplexity: 10}
+measures:
+  k: [10]
+"""
+
+
+@pytest.fixture(scope="module")
+def run_dir(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("runs")
+    outcome = run_suite(parse_suite(SUITE, str(out / "tiny.yaml")), out, jobs=2, isolate=True)
+    assert outcome.failed == 0
+    write_report(outcome.run_dir)
+    return outcome.run_dir
+
+
+@pytest.fixture(scope="module")
+def analysis(run_dir):
+    return analyse(run_dir)
+
+
+@pytest.mark.slow
+def test_every_file_is_written(run_dir):
+    for name in ("report.html", "tables.md", "tables.tex"):
+        assert (run_dir / name).stat().st_size > 0, name
+    for name in FIGURES.values():
+        img = Image.open(run_dir / "figures" / name)
+        assert img.format == "PNG" and min(img.size) > 100, name
+
+
+@pytest.mark.slow
+def test_page_is_self_contained(run_dir):
+    page = (run_dir / "report.html").read_text(encoding="utf-8")
+    assert not re.search(r"<script|<link|@import|url\(|src=\"(?!data:)", page)
+    sources = re.findall(r'src="data:image/png;base64,([^"]+)"', page)
+    assert len(sources) == len(FIGURES)
+    for data in sources:
+        assert Image.open(io.BytesIO(base64.b64decode(data))).format == "PNG"
+
+
+@pytest.mark.slow
+def test_page_opens_with_the_verdict_and_cautions(run_dir, analysis):
+    page = (run_dir / "report.html").read_text(encoding="utf-8")
+    body = page[page.index("<main>"):]
+    assert body.index("Verdict") < body.index("Across datasets") < body.index("Pictures")
+    assert "carry little meaning" in page           # tsne is a neighbour-family method
+    assert "isomap (tuned)" in page                  # run over a grid
+    assert "percentile-bootstrap" in page            # intervals are said to be estimates
+
+
+@pytest.mark.slow
+def test_verdict_names_each_datasets_leader(analysis):
+    sentences = verdict(analysis)
+    assert sentences[0].startswith("Across 2 datasets")
+    for name in ("iris", "roll"):
+        t = analysis.tuned[analysis.tuned.dataset == name].sort_values("mean_rank")
+        leader = t.iloc[0]["method"]
+        line = next(s for s in sentences if s.startswith(f"On {name},"))
+        assert f"pick {leader}" in line
+
+
+@pytest.mark.slow
+def test_tuned_point_is_the_best_grid_point(analysis):
+    r = analysis.ranked
+    for name in ("iris", "roll"):
+        grid = r[(r.dataset == name) & (r.method == "isomap")]
+        assert len(grid) == 2
+        chosen = analysis.tuned[(analysis.tuned.dataset == name) & (analysis.tuned.method == "isomap")]
+        assert chosen["params"].iloc[0] == grid.sort_values("mean_rank")["params"].iloc[0]
+        assert bool(chosen["tuned"].iloc[0])
+
+
+@pytest.mark.slow
+def test_cross_dataset_test_uses_two_datasets_four_methods(analysis):
+    assert analysis.friedman is not None
+    assert (analysis.friedman.n_blocks, analysis.friedman.n_treatments) == (2, 4)
+    assert analysis.cd == pytest.approx(critical_difference(4, 2))
+    # each dataset's Friedman ranks are a permutation-with-ties of 1..4: they sum to 10 per block
+    assert analysis.friedman.mean_ranks.sum() == pytest.approx(10.0)
+
+
+@pytest.mark.slow
+def test_stability_of_a_deterministic_method_is_perfect(analysis):
+    # pca ignores its seed, so both seeds give the same embedding (plumbing)
+    pca = analysis.stability[analysis.stability.method == "pca"]
+    assert (pca["knn_overlap"] == 1.0).all()
+    assert np.allclose(pca["procrustes"], 0.0, atol=1e-10)
+
+
+@pytest.mark.slow
+def test_latex_tables_use_booktabs(run_dir):
+    tex = (run_dir / "tables.tex").read_text(encoding="utf-8")
+    assert tex.count("\\toprule") == tex.count("\\midrule") == tex.count("\\bottomrule") > 2
+    assert "\\textbf{" in tex and "$\\pm$" in tex
+    assert "±" not in tex and "laplacian_" not in tex
+
+
+@pytest.mark.slow
+def test_html_renders_in_headless_chromium(run_dir, tmp_path):
+    browser = shutil.which("chromium") or shutil.which("chromium-browser")
+    if browser is None:
+        pytest.skip("chromium is not installed (apt-get install -y chromium)")
+    page = (run_dir / "report.html").read_text(encoding="utf-8")
+    # A copy with a probe that records, once loaded, how many images decoded.
+    probe = ("<script>window.addEventListener('load',()=>{const i=[...document.images];"
+             "document.body.setAttribute('data-decoded',i.filter(x=>x.complete&&x.naturalWidth>0).length"
+             "+'/'+i.length);});</script></body>")
+    probed = tmp_path / "probe.html"
+    probed.write_text(page.replace("</body>", probe), encoding="utf-8")
+    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+             "--disable-component-update", "--disable-sync", "--no-first-run",
+             f"--user-data-dir={tmp_path / 'profile'}", "--virtual-time-budget=15000"]
+    dom = subprocess.run([browser, *flags, "--dump-dom", probed.as_uri()], capture_output=True,
+                         text=True, timeout=120).stdout
+    n = len(FIGURES)
+    assert f'data-decoded="{n}/{n}"' in dom
+    shot = tmp_path / "shot.png"
+    subprocess.run([browser, *flags, f"--screenshot={shot}", "--window-size=1280,1600",
+                    (run_dir / "report.html").as_uri()], capture_output=True, timeout=120)
+    pixels = np.asarray(Image.open(shot).convert("L"), dtype=float)
+    assert pixels.std() > 10  # not a blank page
+
+
+def test_best_mask_marks_printed_ties():
+    values = pd.Series([0.9991, 0.9994, 0.5, np.nan])
+    # both print as 0.999, so both are best (plumbing)
+    assert best_mask(values, higher=True).tolist() == [True, True, False, False]
+    assert best_mask(values, higher=False).tolist() == [False, False, True, False]
+
+
+def test_measure_table_bold_and_escape():
+    frame = pd.DataFrame({"method": ["a_b", "c"], "params": ["-", "-"], "stress": [0.2, 0.1],
+                          "stress_sd": [0.01, 0.02], "trustworthiness@10": [0.9, 0.8],
+                          "trustworthiness@10_sd": [np.nan, 0.1]})
+    md = measure_table(frame, ["stress", "trustworthiness@10"], ["method", "params"])
+    assert "**0.100 ± 0.020**" in md and "**0.900**" in md
+    tex = measure_table(frame, ["stress", "trustworthiness@10"], ["method", "params"], style="latex")
+    assert "a\\_b" in tex and "\\textbf{0.100 $\\pm$ 0.020}" in tex
+    assert tex.splitlines()[1] == "\\toprule"
+    assert tex_escape("50% & #1_x") == "50\\% \\& \\#1\\_x"

@@ -1,0 +1,174 @@
+"""Nothing lost, nothing computed twice: resume, cache, limits, crashes, degenerate output.
+
+Plumbing tests of our own runner with invented suites and misbehaving plug-ins
+(tests/runner_plugins.py).
+"""
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from harness.cache import EmbeddingCache
+from harness.cli import main
+from harness.errors import InputError
+from harness.pipeline import run_suite
+from harness.store import new_run_dir
+
+TESTS = Path(__file__).parent
+TIMING = ["fit_seconds", "fit_peak_mb", "score_seconds", "from_cache", "error"]
+
+
+def suite_file(tmp_path: Path, methods: str, name: str = "tough", seeds: int = 2) -> Path:
+    path = tmp_path / f"{name}.yaml"
+    path.write_text(f"""\
+name: {name}
+seeds: {seeds}
+datasets:
+  - use: iris
+  - use: rolled_sheet
+    name: roll
+    params: {{n: 120}}
+methods:
+{methods}
+measures:
+  k: [5]
+""")
+    return path
+
+
+def comparable(scores: pd.DataFrame) -> pd.DataFrame:
+    cols = [c for c in scores.columns if c not in TIMING]
+    return scores[cols].sort_values(["dataset", "method", "params", "seed"]).reset_index(drop=True)
+
+
+def test_time_limit_stops_a_cell_and_the_run_goes_on(tmp_path):
+    suite = suite_file(tmp_path, "  - use: pca\n  - use: runner_plugins:Sleeps\n    name: sleepy\n", seeds=1)
+    t0 = time.perf_counter()
+    outcome = run_suite(suite, tmp_path / "out", jobs=2, time_limit=2.0)
+    assert time.perf_counter() - t0 < 40
+    s = outcome.scores
+    assert set(s[s.method == "sleepy"].status) == {"timeout"}
+    assert s[s.method == "sleepy"].error.str.contains("time limit of 2 s").all()
+    assert set(s[s.method == "pca"].status) == {"ok"}
+
+
+@pytest.mark.parametrize("plugin,status,words", [
+    ("Exits", "crashed", "exited with code 3"),
+    ("RunsOutOfMemory", "failed", "MemoryError"),
+    ("Raises", "failed", "always fails"),
+])
+def test_a_dying_or_failing_worker_costs_only_its_cell(tmp_path, plugin, status, words):
+    suite = suite_file(tmp_path, f"  - use: pca\n  - use: runner_plugins:{plugin}\n    name: bad\n", seeds=1)
+    outcome = run_suite(suite, tmp_path / "out", jobs=2)
+    s = outcome.scores
+    assert set(s[s.method == "bad"].status) == {status}
+    assert s[s.method == "bad"].error.str.contains(words).all()
+    assert set(s[s.method == "pca"].status) == {"ok"}
+    assert outcome.failed == 2
+
+
+def test_degenerate_embedding_is_a_failed_cell(tmp_path):
+    suite = suite_file(tmp_path, "  - use: runner_plugins:Noisy\n    name: flat\n    params: {noise: .nan}\n", seeds=1)
+    outcome = run_suite(suite, tmp_path / "out", jobs=1)
+    s = outcome.scores
+    assert set(s.status) == {"failed"}
+    assert s.error.str.startswith("degenerate embedding").all()
+
+
+@pytest.mark.parametrize("bad", ["../up", "a/b", "/abs", ".hidden", "x" * 80, "a\\b", "..", "ok/../../up"])
+def test_suite_name_cannot_escape_the_output_root(tmp_path, bad):
+    from harness.suite import parse_suite
+    with pytest.raises(InputError, match="s.yaml: name"):
+        parse_suite(f"name: '{bad}'\ndatasets: [iris]\nmethods: [pca]\n", "s.yaml")
+
+
+@pytest.mark.parametrize("bad", ["../up", "ok/../../up", "/tmp/abs", ".."])
+def test_the_store_refuses_paths_outside_the_root_even_unvalidated(tmp_path, bad):
+    root = tmp_path / "root"
+    with pytest.raises(InputError):
+        new_run_dir(root, bad)
+    assert sorted(p.name for p in tmp_path.iterdir()) in ([], ["root"])
+
+
+def test_cache_makes_a_second_run_skip_the_fits(tmp_path):
+    suite = suite_file(tmp_path, "  - use: pca\n  - use: tsne\n    params: {perplexity: 10}\n", seeds=1)
+    cache = EmbeddingCache(tmp_path / "cache")
+    first = run_suite(suite, tmp_path / "out", jobs=2, cache=cache)
+    assert cache.info()["entries"] == 4
+    second = run_suite(suite, tmp_path / "out", jobs=2, cache=cache)
+    assert second.scores["from_cache"].all()
+    pd.testing.assert_frame_equal(comparable(first.scores.drop(columns="key")),
+                                  comparable(second.scores.drop(columns="key")))
+    assert main(["cache", "info", "--cache", str(tmp_path / "cache")]) == 0
+    assert main(["cache", "clear", "--cache", str(tmp_path / "cache")]) == 0
+    assert cache.info()["entries"] == 0
+
+
+def test_resume_refuses_a_folder_of_another_suite(tmp_path):
+    a = suite_file(tmp_path, "  - use: pca\n", name="one", seeds=1)
+    b = suite_file(tmp_path, "  - use: isomap\n", name="two", seeds=1)
+    done = run_suite(a, tmp_path / "out")
+    with pytest.raises(InputError, match="expected a run of this suite"):
+        run_suite(b, tmp_path / "out", resume=done.run_dir)
+
+
+@pytest.mark.slow
+def test_sigkill_then_resume_gives_the_uninterrupted_scores(tmp_path):
+    methods = ("  - use: pca\n  - use: isomap\n    params: {n_neighbors: 8}\n"
+               "  - use: runner_plugins:Sleeps\n    name: slow\n    params: {seconds: 0.4}\n")
+    suite = suite_file(tmp_path, methods, seeds=3)
+    reference = run_suite(suite, tmp_path / "ref", jobs=1)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS), os.environ.get("PYTHONPATH", "")]))
+    cmd = [sys.executable, "-m", "harness", "run", str(suite), "--out", str(tmp_path / "out"),
+           "--jobs", "1", "--no-cache", "--quiet"]
+    proc = subprocess.Popen(cmd, env=env, start_new_session=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.time() + 60
+    run_dir = None
+    while time.time() < deadline:
+        found = list((tmp_path / "out" / "tough").glob("*/cells/*.json"))
+        if len(found) >= 4:
+            run_dir = found[0].parent.parent
+            break
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait()
+    assert run_dir is not None, "the run never stored 4 cells"
+    stored = len(list((run_dir / "cells").glob("*.json")))
+    assert 4 <= stored < 18
+    code = subprocess.run(cmd[:-1] + ["--resume", str(run_dir), "--quiet"], env=env,
+                          capture_output=True, text=True)
+    assert code.returncode == 0, code.stderr
+    resumed = pd.read_csv(run_dir / "scores.csv")
+    assert len(resumed) == 18
+    assert not resumed.duplicated(["dataset", "method", "params", "seed"]).any()
+    ref = comparable(pd.read_csv(reference.run_dir / "scores.csv"))
+    got = comparable(resumed)
+    pd.testing.assert_frame_equal(ref[got.columns.drop("key")].reset_index(drop=True),
+                                  got.drop(columns="key"), check_dtype=False)
+
+
+def test_ctrl_c_stops_cleanly_and_says_how_to_resume(tmp_path):
+    methods = "  - use: runner_plugins:Sleeps\n    name: slow\n    params: {seconds: 1.0}\n"
+    suite = suite_file(tmp_path, methods, seeds=4)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS), os.environ.get("PYTHONPATH", "")]))
+    proc = subprocess.Popen([sys.executable, "-m", "harness", "run", str(suite), "--out", str(tmp_path / "out"),
+                             "--jobs", "1", "--no-cache", "--quiet"], env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.time() + 60
+    while time.time() < deadline and not list((tmp_path / "out").glob("tough/*/cells/*.json")):
+        time.sleep(0.05)
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert "Resume with: foldbench run" in err and "--resume" in err
+    assert "Traceback" not in err
+    run_dir = next((tmp_path / "out" / "tough").iterdir())
+    assert (run_dir / "scores.csv").is_file()

@@ -126,9 +126,9 @@ def parse_tolerances(raw: Any, where: str = "tolerances") -> dict[str, Any]:
         raise InputError(where, f"expected a mapping of measure names to tolerances, got {_show(raw)}")
     out: dict[str, Any] = {}
     for key, value in raw.items():
-        at = f"{where}.{key}"
         if not isinstance(key, str):
             raise InputError(where, f"expected measure names as keys, got {key!r}")
+        at = f"{where}.{_key(key)}"
         if key == "alpha":
             if not _is_number(value) or not 0 < value < 1:
                 raise InputError(at, f"expected a significance level between 0 and 1, got {_show(value)}")
@@ -151,7 +151,7 @@ def _tolerance(value: Any, where: str) -> Tolerance:
     if isinstance(value, Mapping):
         for key in value:
             if key not in _TOLERANCE_KEYS:
-                raise InputError(f"{where}.{key}", f"unknown key{suggest(str(key), _TOLERANCE_KEYS)}; "
+                raise InputError(f"{where}.{_key(key)}", f"unknown key{suggest(str(key), _TOLERANCE_KEYS)}; "
                                                    f"expected one of {', '.join(_TOLERANCE_KEYS)}")
         if not value:
             raise InputError(where, "expected at least one of abs, rel, gate")
@@ -368,7 +368,7 @@ def parse_expectations(raw: Any, where: str = "expect", doc: Mapping[str, Any] |
                                  f"measure: trustworthiness@10, at_least: 0.9}}, got {_show(item)}")
         for key in item:
             if key not in _EXPECT_KEYS:
-                raise InputError(f"{at}.{key}", f"unknown key{suggest(str(key), _EXPECT_KEYS)}; "
+                raise InputError(f"{at}.{_key(key)}", f"unknown key{suggest(str(key), _EXPECT_KEYS)}; "
                                                 f"expected one of {', '.join(_EXPECT_KEYS)}")
         if "measure" not in item:
             raise InputError(f"{at}.measure", "missing: the measure to bound, e.g. trustworthiness@10")
@@ -409,11 +409,11 @@ def _declared(doc: Mapping[str, Any] | None) -> tuple[list[str] | None, list[str
 
 
 def _measure_key(name: str, where: str, allow_k_any: bool = False, ks: tuple[int, ...] = ()) -> str:
-    stem, _, k = name.partition("@")
+    stem, at_sign, k = name.partition("@")
     if stem not in MEASURES:
-        raise InputError(where, f"unknown measure '{stem}'{suggest(stem, MEASURES)}; "
+        raise InputError(where, f"unknown measure {stem!r}{suggest(stem, MEASURES)}; "
                                 "see 'foldbench list measures'")
-    if k:
+    if at_sign:
         if not MEASURES[stem].per_k:
             raise InputError(where, f"expected '{stem}' without '@k' ({stem} does not depend on k)")
         if not k.isdigit() or (not allow_k_any and ks and int(k) not in ks):
@@ -443,7 +443,7 @@ def _names(value: Any, where: str, known: list[str] | None, what: str) -> tuple[
         if not isinstance(name, str):
             raise InputError(at, f"expected a {what} name, got {_show(name)}")
         if known is not None and name not in known:
-            raise InputError(at, f"unknown {what} '{name}'{suggest(name, known)}; "
+            raise InputError(at, f"unknown {what} {name!r}{suggest(name, known)}; "
                                  f"the suite's {what}s are {', '.join(known)}")
     return tuple(items)
 
@@ -457,7 +457,7 @@ def _param_selector(value: Any, where: str) -> tuple[tuple[str, str], ...]:
     out = []
     for key, v in value.items():
         if not isinstance(key, str) or isinstance(v, (list, dict)):
-            raise InputError(f"{where}.{key}", f"expected one value, got {_show(v)}")
+            raise InputError(f"{where}.{_key(key)}", f"expected one value, got {_show(v)}")
         out.append((key, _param_text(v)))
     return tuple(out)
 
@@ -548,6 +548,12 @@ def _looks_numeric(text: str) -> bool:
     except ValueError:
         return False
     return True
+
+
+def _key(key: Any) -> str:
+    """A mapping key as it may appear in a one-line message."""
+    text = str(key)
+    return text if text.isprintable() and text.strip() == text and text else repr(key)
 
 
 def _show(value: Any) -> str:

@@ -17,6 +17,7 @@ import os
 import pickle
 import shutil
 import signal
+import sys
 import tempfile
 import threading
 import time
@@ -203,9 +204,11 @@ class _Collect(logging.Handler):
 
 
 def _child(cell: Cell, where: Path, scoring: Scoring, threads: int, cache: EmbeddingCache | None,
-           conn: mp.connection.Connection) -> None:
+           sys_path: list[str], conn: mp.connection.Connection) -> None:
     # The parent handles Ctrl-C; a child only stops when told to.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # Plug-ins import from the parent's path as it is now, not as it was when the fork server started.
+    sys.path[:] = sys_path
     conn.send(_STARTED)
     collect = _Collect()
     root = logging.getLogger()
@@ -238,7 +241,8 @@ def _supervise(cell: Cell, where: Path, scoring: Scoring, threads: int, time_lim
         return CellResult(cell, "interrupted", "not started: the run was interrupted")
     ctx = _context()
     receive, send = ctx.Pipe(duplex=False)
-    proc = ctx.Process(target=_child, args=(cell, where, scoring, threads, cache, send), daemon=True)
+    proc = ctx.Process(target=_child, args=(cell, where, scoring, threads, cache, list(sys.path), send),
+                       daemon=True)
     proc.start()
     send.close()
     t0 = None  # the clock starts when the child is running, not while the fork server warms up

@@ -9,6 +9,7 @@ from __future__ import annotations
 import hashlib
 import itertools
 import re
+import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -360,6 +361,18 @@ def _run_settings(raw: Any, where: str) -> RunSettings:
 
 # ---------------------------------------------------------------- public entry points
 
+def _allow_plugins_from(folder: Path) -> None:
+    """Let ``package.module:Name`` plug-ins import from the working folder and the suite's folder.
+
+    The console script does not put the working folder on the import path the way
+    ``python -m`` does; a plug-in module next to the suite is what users expect to work.
+    """
+    for place in (str(Path.cwd()), str(folder)):
+        if place not in sys.path:
+            sys.path.append(place)
+
+
+
 def parse_suite(text: str, path: str = "<suite>") -> Suite:
     """Validate suite text (YAML) and return a :class:`Suite`.
 
@@ -392,6 +405,7 @@ def parse_suite(text: str, path: str = "<suite>") -> Suite:
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise InputError(f"{label}:{at}".rstrip(":"), f"expected valid YAML ({problem})") from None
     base = Path(path).resolve().parent if path != "<suite>" else Path.cwd()
+    _allow_plugins_from(base)
     try:
         if not isinstance(doc, Mapping):
             raise InputError("", f"expected a mapping with keys name, datasets, methods, ...; got {_show(doc)}")

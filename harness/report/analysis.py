@@ -55,7 +55,8 @@ class Analysis:
         dataset, ranked again among methods.  ``tuned`` is true where the method had
         more than one grid point (its row was chosen after seeing the scores).
     overall : DataFrame
-        ``method, params_by_dataset, datasets, mean_rank, friedman_rank, place``.
+        ``method, datasets, mean_rank, params, friedman_rank, place`` (``params``: the grid
+        point used, per dataset when it differs).
     friedman : FriedmanResult or None
         The test over datasets, when it can be run.
     friedman_methods : list of str
@@ -148,6 +149,7 @@ def analyse(run_dir: str | Path, *, quality: str = "mean_rank", alpha: float = 0
     stab = _stability(run, suite.scoring.ks[0]) if stability else pd.DataFrame(columns=CONFIG)
     notes = list(run_notes(suite, scores))
     if note:
+        log.info("%s", note)
         notes.append(note)
     if gridded:
         notes.append("Methods run over a grid (" + ", ".join(sorted(gridded)) + ") are compared at "
@@ -205,9 +207,8 @@ def _across(tuned: pd.DataFrame, alpha: float):
     overall = (tuned.groupby("method", sort=False)
                .agg(datasets=("mean_rank", "count"), mean_rank=("mean_rank", "mean"))
                .reset_index())
-    params = tuned.groupby("method", sort=False).apply(
-        lambda g: "; ".join(f"{d}: {p}" for d, p in zip(g["dataset"], g["params"])), include_groups=False)
-    overall["params"] = overall["method"].map(params)
+    overall["params"] = overall["method"].map(
+        {m: _params_text(g) for m, g in tuned.groupby("method", sort=False)})
     friedman, cd, groups = None, None, []
     if complete.shape[0] >= 2 and complete.shape[1] >= 3:
         ranks = rank_blocks(complete.to_numpy(float), higher_is_better=False)
@@ -227,6 +228,14 @@ def _across(tuned: pd.DataFrame, alpha: float):
     overall["place"] = overall["mean_rank"].rank(method="min")
     overall = overall.sort_values("mean_rank", kind="stable").reset_index(drop=True)
     return friedman, methods, cd, groups, overall, note
+
+
+def _params_text(group: pd.DataFrame) -> str:
+    """The parameters a method used: one text when every dataset used the same, else per dataset."""
+    values = list(dict.fromkeys(group["params"]))
+    if len(values) == 1:
+        return str(values[0])
+    return "; ".join(f"{d}: {p}" for d, p in zip(group["dataset"], group["params"]))
 
 
 def _stability(run: Run, k: int) -> pd.DataFrame:

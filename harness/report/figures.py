@@ -6,7 +6,6 @@ has nothing to draw for it (say, no curves).
 from __future__ import annotations
 
 import io
-import logging
 import math
 from pathlib import Path
 
@@ -24,8 +23,6 @@ from ..datasets import Dataset  # noqa: E402
 from ..rank import higher_is_better  # noqa: E402
 from . import palette  # noqa: E402
 from .analysis import Analysis  # noqa: E402
-
-log = logging.getLogger(__name__)
 
 DPI = 110
 #: Pairs drawn in a Shepard diagram panel; enough to see the shape, few enough to stay light.
@@ -370,7 +367,10 @@ def quality_vs_time(analysis: Analysis, path: Path) -> Path | None:
         fig, axes = plt.subplots(rows, cols, figsize=(5.0 * cols, 3.4 * rows), squeeze=False)
         for ax, ds_name in zip(axes.ravel(), names):
             g = r[(r.dataset == ds_name)].dropna(subset=[q, "fit_seconds"])
-            for method, part in g.groupby("method", sort=False):
+            for method in methods:
+                part = g[g.method == method]
+                if part.empty:
+                    continue
                 ax.scatter(part["fit_seconds"], part[q], s=36, color=colours.get(method, palette.SLATE),
                            edgecolors=palette.INK, linewidths=0.4, zorder=3, label=method)
             front = g[g["pareto"]].sort_values("fit_seconds")

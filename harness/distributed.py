@@ -1,0 +1,265 @@
+"""Execute cells on a Dask cluster: the same results as the local backend, computed elsewhere.
+
+The parent (the machine running foldbench) sends each dataset to the cluster
+once, submits one task per cell, and yields results as they arrive; the store
+and the embedding cache stay on the parent.  Cached fits are looked up by the
+parent before submitting, so a cached cell travels with its embedding and the
+worker only scores it: workers never need to see the cache folder.
+
+A dataset is placed on the cluster by a task that holds it, not by scattering:
+the scheduler keeps that task's argument, so when the workers holding the data
+die (a plug-in that kills its process takes its worker with it) the data are
+rebuilt instead of lost, and only the cell that killed its workers fails.
+
+``distributed`` is imported inside the functions, so ``import harness`` works
+without the ``dask`` extra.
+"""
+from __future__ import annotations
+
+import logging
+import os
+import sys
+import threading
+import traceback
+import uuid
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from types import ModuleType
+from typing import Any
+
+from threadpoolctl import threadpool_limits
+
+from .cache import CacheEntry, EmbeddingCache
+from .cells import Cell, CellResult
+from .datasets import Dataset
+from .errors import InputError
+from .runner import Execution, compute_cell
+from .suite import Scoring
+
+log = logging.getLogger(__name__)
+
+#: Seconds between checks for a stop request while waiting for results.
+_POLL = 0.25
+#: Seconds to wait for a scheduler given by address.
+_CONNECT_TIMEOUT = 20
+#: BLAS threads per task: Dask runs one task per worker thread, so more would oversubscribe.
+_TASK_THREADS = 1
+
+MISSING_EXTRA = "the dask backend needs the dask extra: pip install 'foldbench[dask]'"
+
+
+def execute_on_dask(cells: list[Cell], datasets: dict[str, Dataset], scoring: Scoring,
+                    execution: Execution, cache: EmbeddingCache | None = None,
+                    stop: threading.Event | None = None,
+                    scheduler: str | None = None) -> Iterator[CellResult]:
+    """Compute cells on a Dask cluster and yield each result as soon as it is ready.
+
+    The contract is that of :func:`harness.runner.execute`: results come in
+    finishing order, every cell ends with exactly one result, and nothing is
+    written here.
+
+    Parameters
+    ----------
+    cells : list of Cell
+        Cells to compute.
+    datasets : dict
+        Dataset name to :class:`Dataset`.
+    scoring : Scoring
+        Measure settings.
+    execution : Execution
+        ``jobs`` sizes the local cluster started when ``scheduler`` is None;
+        ``time_limit`` is measured on the worker from the moment the cell starts.
+        ``isolate`` is ignored: cells never run in the parent process.
+    cache : EmbeddingCache, optional
+        Read by the parent only; a cached cell is sent with its embedding and only scored.
+    stop : threading.Event, optional
+        When set, outstanding cells are cancelled and come back ``interrupted``.
+    scheduler : str, optional
+        Address of a running Dask scheduler (``tcp://host:8786``).  ``None``
+        starts a cluster of worker processes on this machine for the duration
+        of the call.
+
+    Yields
+    ------
+    CellResult
+        Besides the statuses of :func:`compute_cell`: ``timeout`` when the cell
+        overran ``time_limit``; ``crashed`` when the workers running it kept
+        dying; ``failed`` when the task raised (for instance a plug-in module
+        that a worker cannot import).
+
+    Raises
+    ------
+    InputError
+        When ``distributed`` is not installed, or the scheduler cannot be reached.
+
+    Notes
+    -----
+    A cell that overruns its time limit is reported at once, but Python cannot
+    stop the thread that computes it: it keeps its worker busy until the fit
+    ends.  The local backend, which runs each cell in a process of its own,
+    stops such a cell for good.
+    """
+    if not cells:
+        return
+    dd = _import_distributed()
+    stop = stop or threading.Event()
+    with _client(dd, scheduler, max(1, min(execution.jobs, len(cells)))) as client:
+        yield from _run(dd, client, cells, datasets, scoring, execution.time_limit, cache, stop)
+
+
+def _import_distributed() -> ModuleType:
+    try:
+        import distributed
+    except ImportError:
+        raise InputError("--backend", MISSING_EXTRA) from None
+    return distributed
+
+
+@contextmanager
+def _client(dd: ModuleType, scheduler: str | None, workers: int) -> Iterator[Any]:
+    """A client of the given scheduler, or of a cluster started (and closed) here."""
+    if scheduler is not None:
+        try:
+            client = dd.Client(scheduler, timeout=_CONNECT_TIMEOUT)
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise InputError("--scheduler", f"expected the address of a running Dask scheduler "
+                                            f"(tcp://host:8786); could not connect to {scheduler!r} "
+                                            f"({type(exc).__name__}: {exc})") from None
+        try:
+            yield client
+        finally:
+            client.close()
+        return
+    # Worker processes, one thread each: a cell is the unit of parallelism, as in the local backend.
+    cluster = dd.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                              dashboard_address=None, silence_logs=logging.ERROR)
+    try:
+        client = dd.Client(cluster)
+        try:
+            yield client
+        finally:
+            client.close()
+    finally:
+        cluster.close()
+
+
+def _run(dd: ModuleType, client: Any, cells: list[Cell], datasets: dict[str, Dataset],
+         scoring: Scoring, time_limit: float | None, cache: EmbeddingCache | None,
+         stop: threading.Event) -> Iterator[CellResult]:
+    token = uuid.uuid4().hex[:8]  # two runs sharing a cluster must not share task names
+    held = {name: client.submit(_hold, datasets[name], key=f"foldbench-data-{name}-{token}", pure=False)
+            for name in dict.fromkeys(c.dataset for c in cells)}
+    parent_path = list(sys.path)
+    pending = {}
+    for cell in cells:
+        hit = cache.get(cell) if cache is not None else None
+        future = client.submit(_task, cell, held[cell.dataset], scoring,
+                               _KnownFit(hit) if hit is not None else None, time_limit, parent_path,
+                               key=f"foldbench-cell-{cell.method}-{cell.key}-{token}", pure=False)
+        pending[future] = cell
+    log.info("submitted %d cells to the Dask scheduler %s", len(cells), client.scheduler.address)
+    try:
+        while pending:
+            if stop.is_set():
+                client.cancel(list(pending))
+                for cell in pending.values():
+                    yield CellResult(cell, "interrupted", "stopped: the run was interrupted")
+                pending.clear()
+                return
+            try:
+                finished, _ = dd.wait(list(pending), timeout=_POLL, return_when="FIRST_COMPLETED")
+            except TimeoutError:
+                continue
+            for future in finished:
+                cell = pending.pop(future)
+                result = _collect(dd, future, cell)
+                future.release()  # the embedding need not stay in a worker's memory
+                yield result
+    finally:
+        # Reached early when the consumer stops iterating; leaves nothing running on a shared cluster.
+        if pending:
+            client.cancel(list(pending))
+        client.cancel(list(held.values()))
+
+
+def _collect(dd: ModuleType, future: Any, cell: Cell) -> CellResult:
+    """The cell's result, or a result saying why the cluster could not produce one."""
+    try:
+        return future.result()
+    except dd.KilledWorker as exc:
+        tries = exc.allowed_failures + 1 if getattr(exc, "allowed_failures", None) is not None else "several"
+        return CellResult(cell, "crashed",
+                          f"the worker process died each of the {tries} times it ran this cell "
+                          "(a crash such as os._exit or a segmentation fault, or an out-of-memory kill)")
+    except dd.client.FutureCancelledError as exc:
+        return CellResult(cell, "crashed", f"the Dask cluster dropped this cell: {_one_line(exc)}")
+    except Exception as exc:  # the task itself raised: report it, keep the run going
+        return CellResult(cell, "failed", _one_line(exc),
+                          detail="".join(traceback.format_exception(exc, limit=8)))
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split()) or "(no message)"
+    return f"{type(exc).__name__}: {text}"[:500]
+
+
+# ---------------------------------------------------------------- on the worker
+
+def _hold(dataset: Dataset) -> Dataset:
+    """Hand the dataset to the cluster as a task result, which it can rebuild if lost."""
+    return dataset
+
+
+@dataclass(frozen=True)
+class _KnownFit:
+    """A cache hit found by the parent, shipped with the cell (answers like a cache)."""
+
+    entry: CacheEntry
+
+    def get(self, cell: Cell) -> CacheEntry:
+        return self.entry
+
+
+class _ThreadWarnings(logging.Handler):
+    """Keeps the warnings one thread logs, to hand them back with its cell's result."""
+
+    def __init__(self, thread_id: int) -> None:
+        super().__init__(logging.WARNING)
+        self.thread_id = thread_id
+        self.lines: list[str] = []
+
+    def emit(self, record: logging.LogRecord) -> None:
+        if record.thread == self.thread_id:
+            self.lines.append(" ".join(record.getMessage().split())[:300])
+
+
+def _task(cell: Cell, dataset: Dataset, scoring: Scoring, known: _KnownFit | None,
+          time_limit: float | None, parent_path: list[str]) -> CellResult:
+    """Compute one cell on a worker, within its time limit."""
+    # Workers on the parent's filesystem find plug-ins where the parent does; elsewhere the
+    # entries do not exist and change nothing.
+    sys.path.extend(p for p in parent_path if p not in sys.path and os.path.isdir(p))
+    box: dict[str, CellResult] = {}
+
+    def work() -> None:
+        with threadpool_limits(limits=_TASK_THREADS):
+            box["result"] = compute_cell(cell, dataset, scoring, known)
+
+    worker = threading.Thread(target=work, name=f"foldbench-cell-{cell.key}", daemon=True)
+    collect = _ThreadWarnings(-1)
+    root = logging.getLogger()
+    root.addHandler(collect)
+    try:
+        worker.start()
+        collect.thread_id = worker.ident
+        worker.join(time_limit)
+    finally:
+        root.removeHandler(collect)
+    if worker.is_alive():
+        return CellResult(cell, "timeout", f"stopped after the time limit of {time_limit:g} s")
+    if "result" not in box:  # compute_cell only lets errors of our own code escape
+        raise RuntimeError(f"cell {cell.key} ended without a result; see the worker's log")
+    result = box["result"]
+    result.warnings = tuple(dict.fromkeys(collect.lines))
+    return result

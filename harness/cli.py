@@ -48,6 +48,7 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run of the same suite")
     run.add_argument("--cache", metavar="DIR", help="embedding cache folder (default: the user cache folder)")
     run.add_argument("--no-cache", action="store_true", help="neither read nor fill the embedding cache")
+    run.add_argument("--no-report", action="store_true", help="skip the HTML report and figures at the end")
     run.add_argument("--quiet", action="store_true", help="no progress bar and no tables, only the last line")
 
     val = sub.add_parser("validate", help="check a suite and its data without running anything")
@@ -55,6 +56,26 @@ def _parser() -> argparse.ArgumentParser:
 
     lst = sub.add_parser("list", help="show the datasets, methods or measures foldbench knows")
     lst.add_argument("what", choices=["datasets", "methods", "measures"])
+
+    rep = sub.add_parser("report", help="write the report (HTML page, figures, LaTeX and Markdown tables) of a run")
+    rep.add_argument("run_dir", metavar="RUN_DIR")
+    rep.add_argument("--quality", default="mean_rank",
+                     help="quality axis of the Pareto figure: mean_rank or a measure such as trustworthiness@10")
+    rep.add_argument("--alpha", type=float, default=0.05, help="significance level of the rank tests")
+
+    chk = sub.add_parser("check", help="compare a run with a baseline run: exit 1 on a regression")
+    chk.add_argument("run_dir", metavar="RUN_DIR")
+    chk.add_argument("--baseline", required=True, metavar="DIR", help="the run folder to compare against")
+    chk.add_argument("--tolerance", action="append", metavar="MEASURE=VALUE",
+                     help="override a tolerance, e.g. stress=0.02 or fit_seconds=0.1+50%% (repeatable)")
+    chk.add_argument("--alpha", type=float, help="significance level of the Welch test (default 0.05)")
+    chk.add_argument("--junit", metavar="FILE", help="also write JUnit XML, one test case per comparison")
+    chk.add_argument("--all", action="store_true", help="also list unchanged comparisons")
+
+    rer = sub.add_parser("rerun", help="run a finished run again from its folder and compare cell by cell")
+    rer.add_argument("run_dir", metavar="RUN_DIR")
+    rer.add_argument("--out", metavar="DIR", help="root for the new run (default: the original run's root)")
+    rer.add_argument("--jobs", type=int, metavar="N", help="cells computed at once")
 
     cache = sub.add_parser("cache", help="show or empty the embedding cache")
     cache.add_argument("action", choices=["info", "clear"])
@@ -120,9 +141,24 @@ def _cmd_run(args: argparse.Namespace) -> int:
         for note in outcome.notes:
             print(f"\nNote: {note}")
         print()
+    failed_expectations = _expectations(outcome)
+    if not args.no_report:
+        from .report import write_report
+        page = write_report(outcome.run_dir)
+        if not args.quiet:
+            print(f"Report: {page}")
     counts = ", ".join(f"{v} {k}" for k, v in sorted(outcome.counts.items()))
     print(f"{sum(outcome.counts.values())} cells ({counts}) in {outcome.seconds:.1f} s -> {outcome.run_dir}")
-    return EXIT_FAILED if outcome.failed else EXIT_OK
+    return EXIT_FAILED if outcome.failed or failed_expectations else EXIT_OK
+
+
+def _expectations(outcome) -> int:  # noqa: ANN001 - RunOutcome
+    from .expect import evaluate_expectations, expectations_text
+
+    results = evaluate_expectations(outcome.suite, outcome.scores)
+    if results:
+        print(expectations_text(results))
+    return sum(not r.passed for r in results)
 
 
 def _table_rows(table: Path, label: str | None) -> int:
@@ -199,6 +235,41 @@ def _cmd_list(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _cmd_report(args: argparse.Namespace) -> int:
+    from .report import write_report
+
+    if not 0 < args.alpha < 1:
+        raise InputError("--alpha", f"expected a level between 0 and 1, got {args.alpha}")
+    print(f"Report: {write_report(args.run_dir, quality=args.quality, alpha=args.alpha)}")
+    return EXIT_OK
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from .check import check_markdown, check_runs, check_text, junit_xml
+    from .expect import parse_tolerance_flags
+    from .store import write_text
+
+    if args.alpha is not None and not 0 < args.alpha < 1:
+        raise InputError("--alpha", f"expected a level between 0 and 1, got {args.alpha}")
+    outcome = check_runs(args.run_dir, args.baseline, tolerances=parse_tolerance_flags(args.tolerance or []),
+                         alpha=args.alpha)
+    print(check_text(outcome, show_unchanged=args.all))
+    write_text(Path(args.run_dir) / "check.md", check_markdown(outcome))
+    if args.junit:
+        write_text(Path(args.junit), junit_xml(outcome))
+    return EXIT_OK if outcome.passed else EXIT_FAILED
+
+
+def _cmd_rerun(args: argparse.Namespace) -> int:
+    from .rerun import rerun, rerun_text
+
+    if args.jobs is not None and args.jobs < 1:
+        raise InputError("--jobs", f"expected an integer >= 1, got {args.jobs}")
+    outcome = rerun(args.run_dir, args.out, jobs=args.jobs)
+    print(rerun_text(outcome))
+    return EXIT_OK if outcome.reproduced else EXIT_FAILED
+
+
 def _cmd_cache(args: argparse.Namespace) -> int:
     from .cache import EmbeddingCache, default_cache_dir
 
@@ -221,7 +292,7 @@ def _cmd_init(args: argparse.Namespace) -> int:
 
 
 COMMANDS = {"run": _cmd_run, "validate": _cmd_validate, "list": _cmd_list, "init": _cmd_init,
-            "cache": _cmd_cache}
+            "cache": _cmd_cache, "report": _cmd_report, "check": _cmd_check, "rerun": _cmd_rerun}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -23,6 +23,7 @@ import threading
 import traceback
 import uuid
 from collections.abc import Iterator
+from concurrent.futures import CancelledError
 from contextlib import contextmanager
 from dataclasses import dataclass
 from types import ModuleType
@@ -133,9 +134,10 @@ def _client(dd: ModuleType, scheduler: str | None, workers: int) -> Iterator[Any
         return
     # Worker processes, one thread each: a cell is the unit of parallelism, as in the local backend.
     cluster = dd.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                              dashboard_address=None, silence_logs=logging.ERROR)
+                              dashboard_address=":0", silence_logs=logging.ERROR)
     try:
         client = dd.Client(cluster)
+        log.info("started a local Dask cluster of %d workers (dashboard: %s)", workers, client.dashboard_link)
         try:
             yield client
         finally:
@@ -188,11 +190,11 @@ def _collect(dd: ModuleType, future: Any, cell: Cell) -> CellResult:
     try:
         return future.result()
     except dd.KilledWorker as exc:
-        tries = exc.allowed_failures + 1 if getattr(exc, "allowed_failures", None) is not None else "several"
         return CellResult(cell, "crashed",
-                          f"the worker process died each of the {tries} times it ran this cell "
-                          "(a crash such as os._exit or a segmentation fault, or an out-of-memory kill)")
-    except dd.client.FutureCancelledError as exc:
+                          f"the worker process died each of the {exc.allowed_failures + 1} times it ran "
+                          "this cell (a crash such as os._exit or a segmentation fault, or an "
+                          "out-of-memory kill)")
+    except CancelledError as exc:
         return CellResult(cell, "crashed", f"the Dask cluster dropped this cell: {_one_line(exc)}")
     except Exception as exc:  # the task itself raised: report it, keep the run going
         return CellResult(cell, "failed", _one_line(exc),
@@ -224,13 +226,13 @@ class _KnownFit:
 class _ThreadWarnings(logging.Handler):
     """Keeps the warnings one thread logs, to hand them back with its cell's result."""
 
-    def __init__(self, thread_id: int) -> None:
+    def __init__(self, thread_name: str) -> None:
         super().__init__(logging.WARNING)
-        self.thread_id = thread_id
+        self.thread_name = thread_name
         self.lines: list[str] = []
 
     def emit(self, record: logging.LogRecord) -> None:
-        if record.thread == self.thread_id:
+        if record.threadName == self.thread_name:
             self.lines.append(" ".join(record.getMessage().split())[:300])
 
 
@@ -240,26 +242,32 @@ def _task(cell: Cell, dataset: Dataset, scoring: Scoring, known: _KnownFit | Non
     # Workers on the parent's filesystem find plug-ins where the parent does; elsewhere the
     # entries do not exist and change nothing.
     sys.path.extend(p for p in parent_path if p not in sys.path and os.path.isdir(p))
-    box: dict[str, CellResult] = {}
+    box: dict[str, Any] = {}
 
     def work() -> None:
-        with threadpool_limits(limits=_TASK_THREADS):
-            box["result"] = compute_cell(cell, dataset, scoring, known)
+        try:
+            with threadpool_limits(limits=_TASK_THREADS):
+                box["result"] = compute_cell(cell, dataset, scoring, known)
+        except BaseException as exc:  # handed to the task's thread, which raises it to Dask
+            box["error"] = exc
 
-    worker = threading.Thread(target=work, name=f"foldbench-cell-{cell.key}", daemon=True)
-    collect = _ThreadWarnings(-1)
+    # A thread of its own so that the time limit can be kept while the fit runs.
+    name = f"foldbench-cell-{cell.key}-{uuid.uuid4().hex[:6]}"
+    worker = threading.Thread(target=work, name=name, daemon=True)
+    collect = _ThreadWarnings(name)
     root = logging.getLogger()
     root.addHandler(collect)
     try:
         worker.start()
-        collect.thread_id = worker.ident
         worker.join(time_limit)
     finally:
         root.removeHandler(collect)
     if worker.is_alive():
-        return CellResult(cell, "timeout", f"stopped after the time limit of {time_limit:g} s")
-    if "result" not in box:  # compute_cell only lets errors of our own code escape
-        raise RuntimeError(f"cell {cell.key} ended without a result; see the worker's log")
+        log.warning("cell %s overran its time limit; its fit goes on in the background until it ends",
+                    cell.key)
+        return CellResult(cell, "timeout", f"no result within the time limit of {time_limit:g} s")
+    if "error" in box:
+        raise box["error"]
     result = box["result"]
     result.warnings = tuple(dict.fromkeys(collect.lines))
     return result

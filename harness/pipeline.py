@@ -42,6 +42,8 @@ class RunOutcome:
     ----------
     run_dir : Path
         The run folder.
+    suite : Suite
+        The suite that was run.
     scores : DataFrame
         A row per cell.
     summary : DataFrame
@@ -55,6 +57,7 @@ class RunOutcome:
     """
 
     run_dir: Path
+    suite: Suite
     scores: pd.DataFrame
     summary: pd.DataFrame
     overall: pd.DataFrame
@@ -178,7 +181,7 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
 def _manifest(suite: Suite, datasets: dict, cells: int) -> dict:
     plugin_modules = tuple(m.use.split(":", 1)[0] for m in suite.methods if ":" in m.use)
     return {
-        "suite": {"name": suite.name, "path": str(suite.path), "hash": suite.digest},
+        "suite": {"name": suite.name, "path": str(Path(suite.path).resolve()), "hash": suite.digest},
         "seeds": list(suite.seeds),
         "started": _now(),
         "environment": environment(plugin_modules),
@@ -228,7 +231,7 @@ def summarise_run(run_dir: Path, suite: Suite, order: list | None = None) -> Run
     store.write_csv(run_dir / "summary.csv", ranked)
     store.write_text(run_dir / "ranking.md", ranking_markdown(suite.name, ranked, overall, rank_by, notes))
     counts = {str(k): int(v) for k, v in scores["status"].value_counts().items()}
-    return RunOutcome(run_dir, scores, ranked, overall, counts, notes, rank_by)
+    return RunOutcome(run_dir, suite, scores, ranked, overall, counts, notes, rank_by)
 
 
 def run_notes(suite: Suite, scores: pd.DataFrame) -> list[str]:

@@ -39,6 +39,9 @@ INFO_COLUMNS = ["status", "error", "fit_seconds", "fit_peak_mb", "score_seconds"
 
 # ---------------------------------------------------------------- atomic writes
 
+_UMASK = os.umask(0)
+os.umask(_UMASK)
+
 def _fsync_dir(folder: Path) -> None:
     try:
         fd = os.open(folder, os.O_RDONLY)
@@ -55,6 +58,7 @@ def write_bytes(path: Path, data: bytes) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
+        os.fchmod(fd, 0o666 & ~_UMASK)  # mkstemp makes files private; results are meant to be shared
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._ranks import RankBlock
+from ._ranks import RankBlock, RankWalk
 
 #: Measures computed at every k, in the order they are reported.
 PER_K = ("trustworthiness", "continuity", "knn_recall", "mrre_data", "mrre_embedding", "lcmc")
@@ -111,7 +111,14 @@ def block_terms(block: RankBlock, n: int, ks: Sequence[int], k_auc: int
 
 
 def collect(blocks: Iterable[RankBlock], n: int, ks: Sequence[int], k_auc: int) -> LocalTerms:
-    """Run the engine's blocks through :func:`block_terms` and gather the results."""
+    """Run the engine's blocks through :func:`block_terms` and gather the results.
+
+    A :class:`RankWalk` is narrowed to exact ranks in the first ``max(ks)``
+    columns: the measures read exact ranks only there, and the co-ranking
+    curve only asks whether a rank is at most K.
+    """
+    if isinstance(blocks, RankWalk):
+        blocks = blocks.exact_up_to(max(ks, default=0))
     parts: dict[str, list[np.ndarray]] = {}
     overlap_sum = np.zeros(k_auc)
     count = 0

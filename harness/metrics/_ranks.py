@@ -8,7 +8,11 @@ distance rows,
 
 Every neighbourhood measure (trustworthiness, continuity, recall, MRRE, Q_NX,
 R_NX, LCMC) for every ``k <= K`` is a function of these two ``(n, K)`` rank
-tables, so nothing is recomputed per measure or per ``k``.
+tables, so nothing is recomputed per measure or per ``k``.  The measures need
+exact ranks only in the first ``max(ks)`` columns; further columns only feed
+the co-ranking curve, which needs to know whether a rank is ``<= K``.  A walk
+can therefore be told (:meth:`RankWalk.exact_up_to`) to store ``min(rank, K+1)``
+beyond a given column, which saves counting far-away ranks.
 
 Rank rule (ties)
     The rank of ``j`` for query ``i`` is ``1 +`` the number of points ``l != i``
@@ -16,153 +20,180 @@ Rank rule (ties)
     points first, equal distances broken by the smaller index.  The query point
     itself is never its own neighbour, even when duplicates sit at distance 0.
 
-How a row is ranked without sorting it
-    The row's values are mapped into ``nb`` equal-width buckets on
-    ``[0, row maximum]`` by a monotone map (multiply, add, clip, truncate), and
-    a histogram of the buckets gives, for any value, the exact number of
-    points in lower buckets.  The ``K`` nearest neighbours are the points in
-    the buckets up to the one holding the ``(K+1)``-th smallest value,
-    ordered exactly.  The rank of a needed value adds the exact count of the
-    few points sharing its bucket.  All of it is a handful of vectorised passes
-    over the block, against ``n log n`` per row for a full sort.
+How a row is ranked without sorting it (all steps are whole-block numpy passes)
+    1. The query's own distance is set to ``-inf`` (first in its row, counted
+       once below every other value) and the row is rounded to float32.
+       Rounding is monotone, so a smaller float32 value always means a smaller
+       float64 value; only equal float32 values need the float64 numbers.
+    2. Columns are grouped ``g`` at a time (strided), the minimum of each group
+       is taken and the ``(K+1)``-th smallest group minimum ``t`` is found with
+       a partition of ``n/g`` values.  At least ``K+1`` points lie at or below
+       ``t`` (one per group), and for scattered neighbours only a few more.
+    3. The candidates ``float32 <= t`` are sorted exactly by (float64 distance,
+       index).  Every other point has a larger float32 value, hence a larger
+       distance, so the candidates are exactly the head of the row's order: the
+       ``K`` nearest neighbours and the exact rank of every candidate.
+    4. A point listed by the other space that is not a candidate is counted:
+       ``#(float32 < v)`` and ``#(float32 <= v)`` over the row, a compare pass
+       per needed value and a byte-lane popcount.  When the two counts differ
+       by exactly one (the point itself) the first count is its exact rank;
+       otherwise (equal float32 values, rare outside discrete data) the
+       float64 row is compared exactly.
 """
 from __future__ import annotations
 
+import os
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
 
 from ._distances import DistanceRows
 
-
-@dataclass
-class _BucketedRows:
-    """One block of distance rows with its bucket histogram and neighbour list."""
-
-    dist: np.ndarray        # (b, n) distances used for every decision of these rows
-    bucket: np.ndarray      # (b, n) bucket id, offset by row * n_buckets (globally increasing)
-    cum: np.ndarray         # (b * n_buckets,) points in buckets <= this one, per row
-    n_buckets: int
-    neighbours: np.ndarray  # (b, K) indices, nearest first, query point excluded
-
-
-#: Query rows per pass of the bucket work (cache-sized; see :func:`rank_blocks`).
-SUB_ROWS = 32
-#: Distances per sub-block that keep its bucket tables cache-friendly.
-SUB_ELEMENTS = 2**20
-
-
-def buckets_per_row(n: int) -> int:
-    """Number of histogram buckets per distance row (the row length)."""
-    return n
+#: Distances per sub-block: its float32 copy and compare masks stay in a core's L2 cache.
+SUB_ELEMENTS = 2**17
+#: Largest group of columns reduced to one minimum when looking for the threshold.
+MAX_GROUP = 32
+#: Bytes of compare masks per sub-block (bounds the values counted per pass).
+MASK_BYTES = 2**21
+#: Threads that share the row work of a block (numpy releases the GIL in its passes).
+THREADS = max(1, min(2, os.cpu_count() or 1))
 
 
 def sub_rows_for(n: int) -> int:
-    """Rows per sub-block: about a million distances, at most :data:`SUB_ROWS`."""
-    return max(1, min(SUB_ROWS, SUB_ELEMENTS // n))
+    """Query rows per sub-block: about :data:`SUB_ELEMENTS` distances, at least 1."""
+    return max(1, SUB_ELEMENTS // n)
 
 
-def _bucketise(dist: np.ndarray, rows: np.ndarray, k: int, n_buckets: int,
-               scratch: np.ndarray, bucket_out: np.ndarray) -> _BucketedRows:
+def mask_values_for(rows: int, n: int) -> int:
+    """Needed values compared per pass so that the masks hold about :data:`MASK_BYTES`."""
+    return max(1, MASK_BYTES // (rows * _padded(n)))
+
+
+def _padded(n: int) -> int:
+    return -(-n // 8) * 8
+
+
+@dataclass
+class _Head:
+    """The exactly ordered head of each row of a sub-block."""
+
+    dist: np.ndarray        # (b, n) float64, query entry set to -inf
+    low: np.ndarray         # (b, n) float32 rounding of dist
+    cols: np.ndarray        # (b, w) candidate columns in (distance, index) order, padded with n
+    count: np.ndarray       # (b,) candidates per row (the query included, at position 0)
+
+
+def _head(dist: np.ndarray, rows: np.ndarray, k: int, low: np.ndarray) -> _Head:
     b, n = dist.shape
-    # The query point gets distance -1: below every real distance, so it sits
-    # first in its row and in bucket 0, and is counted exactly once below
-    # every needed value (subtracted in _count_ranks).
-    dist[np.arange(b), rows] = -1.0
-    top = dist.max(axis=1)
-    scale = np.zeros(b)
-    np.divide(float(n_buckets), top, out=scale, where=top > 0)
-    offset = np.arange(b, dtype=np.float64) * n_buckets
-    # Each step is monotone non-decreasing in the distance, so a lower bucket
-    # always means a strictly smaller distance; equal buckets are resolved exactly.
-    t = np.multiply(dist, scale[:, None], out=scratch[:b])
-    t += offset[:, None]
-    np.clip(t, offset[:, None], (offset + (n_buckets - 1))[:, None], out=t)
-    bucket = bucket_out[:b]
-    np.copyto(bucket, t, casting="unsafe")
-    cum = np.bincount(bucket.ravel(), minlength=b * n_buckets).reshape(b, n_buckets)
-    np.cumsum(cum, axis=1, out=cum)
-
-    # Bucket holding the (k+1)-th smallest value of each row (the query point
-    # is the smallest value, so k+1 values give the k nearest other points).
-    last = np.array([np.searchsorted(row, k + 1) for row in cum])
-    limit = (np.arange(b) * n_buckets + last)[:, None]
-    cand = np.flatnonzero(bucket <= limit)
+    dist[np.arange(b), rows] = -np.inf
+    with np.errstate(over="ignore"):
+        np.copyto(low, dist, casting="same_kind")  # overflow to inf keeps the order
+    g = max(1, min(MAX_GROUP, n // (4 * (k + 1))))
+    m = n // g
+    mins = low[:, :g * m].reshape(b, g, m).min(axis=1)
+    if g * m < n:
+        mins = np.concatenate([mins, low[:, g * m:]], axis=1)
+    # Each group minimum is a distinct point, so >= k+1 points lie at or below t.
+    t = np.partition(mins, k, axis=1)[:, k:k + 1]
+    cand = np.flatnonzero(low <= t)
     crow = cand // n
     ccol = cand - crow * n
-    cval = dist.ravel()[cand]
-    per_row = np.bincount(crow, minlength=b)
-    slot = np.arange(len(cand)) - (np.cumsum(per_row) - per_row)[crow]
-    width = int(per_row.max())
+    count = np.bincount(crow, minlength=b)
+    slot = np.arange(len(cand)) - np.repeat(np.cumsum(count) - count, count)
+    width = int(count.max())
     vals = np.full((b, width), np.inf)
     cols = np.full((b, width), n, dtype=np.intp)
-    vals[crow, slot] = cval
+    vals[crow, slot] = dist.ravel()[cand]
     cols[crow, slot] = ccol
-    # Candidates of a row arrive in index order, so a stable sort by distance
-    # yields the (distance, index) order of the rank rule.
-    order = np.argsort(vals, axis=1, kind="stable")[:, 1:k + 1]
-    neighbours = np.take_along_axis(cols, order, axis=1)
-    return _BucketedRows(dist, bucket, cum.ravel(), n_buckets, neighbours)
+    # Candidates arrive in index order, so a stable sort by distance gives the
+    # (distance, index) order of the rank rule; padding (inf, n) sorts last.
+    order = np.argsort(vals, axis=1, kind="stable")
+    return _Head(dist, low, np.take_along_axis(cols, order, axis=1), count)
 
 
-def _count_ranks(view: _BucketedRows, rows: np.ndarray, qrow: np.ndarray,
-                 qcol: np.ndarray) -> np.ndarray:
-    """Exact ranks of points ``qcol`` for the block-local query rows ``qrow``."""
-    if len(qrow) == 0:
-        return np.zeros(0, dtype=np.intp)
-    dist, bucket, cum, nb = view.dist, view.bucket, view.cum, view.n_buckets
+def _count_true(mask: np.ndarray) -> np.ndarray:
+    """True entries along the last axis of a bool array whose last axis is a multiple of 8."""
+    words = mask.view(np.uint64)
+    w = words.shape[-1]
+    # Bytes of a word sum lane by lane without carry while at most 255 words are added.
+    full = w // 255 * 255
+    total = np.zeros(words.shape[:-1], dtype=np.int64)
+    if full:
+        lanes = words[..., :full].reshape(*words.shape[:-1], full // 255, 255).sum(axis=-1)
+        total += lanes.view(np.uint8).reshape(*words.shape[:-1], -1).sum(axis=-1, dtype=np.int64)
+    if full < w:
+        lanes = words[..., full:].sum(axis=-1, dtype=np.uint64)
+        total += lanes[..., None].view(np.uint8).sum(axis=-1, dtype=np.int64)
+    return total
+
+
+def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray) -> np.ndarray:
+    """Exact ranks of points ``qcol`` (not candidates) for the block-local rows ``qrow``."""
+    dist, low = head.dist, head.low
     b, n = dist.shape
-    flat = qrow * n + qcol
-    qval = dist.ravel()[flat]
-    qbucket = bucket.ravel()[flat]
-    # Points in lower buckets of the same row (the query point among them,
-    # unless it shares bucket 0 with the needed value and is counted below).
-    lower = np.where(qbucket - qrow * nb > 0, cum[qbucket - 1], 0)
+    npad = _padded(n)
+    value = dist[qrow, qcol]
+    with np.errstate(over="ignore"):
+        v32 = value.astype(np.float32)
+    # Lay the needed values out as (b, width), -inf in empty slots (counts 0).
+    per_row = np.bincount(qrow, minlength=b)
+    order = np.argsort(qrow, kind="stable")
+    slot = np.empty(len(qrow), dtype=np.intp)
+    slot[order] = np.arange(len(qrow)) - np.repeat(np.cumsum(per_row) - per_row, per_row)
+    width = int(per_row.max())
+    table = np.full((b, width), -np.inf, dtype=np.float32)
+    table[qrow, slot] = v32
+    below = np.empty((b, width), dtype=np.int64)
+    upto = np.empty((b, width), dtype=np.int64)
+    step = mask_values_for(b, n)
+    mask = np.zeros((b, min(step, width), npad), dtype=bool)
+    for s in range(0, width, step):
+        part = table[:, s:s + step, None]
+        c = part.shape[1]
+        view = mask[:, :c]
+        np.less(low[:, None, :], part, out=view[:, :, :n])
+        below[:, s:s + c] = _count_true(view)
+        np.less_equal(low[:, None, :], part, out=view[:, :, :n])
+        upto[:, s:s + c] = _count_true(view)
+    lt = below[qrow, slot]
+    ranks = lt.copy()  # the query (-inf) stands in for the "1 +" of the rank
+    # The point itself is always in upto - below; anything more shares its
+    # float32 value and is resolved with the float64 distances.
+    for t in np.flatnonzero(upto[qrow, slot] - lt > 1):
+        row = dist[qrow[t]]
+        ranks[t] = (np.count_nonzero(row < value[t])
+                    + np.count_nonzero(row[:qcol[t]] == value[t]))
+    return ranks
 
-    # Points sharing a bucket with some needed value are compared exactly.
-    flag = np.zeros(b * nb, dtype=bool)
-    flag[qbucket] = True
-    hit = np.flatnonzero(flag[bucket])
-    hcol = hit % n
-    hval = dist.ravel()[hit]
-    hbucket = bucket.ravel()[hit]
 
-    qorder = np.argsort(qbucket, kind="stable")
-    uniq, first, count = np.unique(qbucket[qorder], return_index=True, return_counts=True)
-    first_of = np.empty(b * nb, dtype=np.intp)
-    count_of = np.empty(b * nb, dtype=np.intp)
-    first_of[uniq] = first
-    count_of[uniq] = count
-    # Pair every hit with every needed value in its bucket (usually one).
-    hcount = count_of[hbucket]
-    pair_hit = np.repeat(np.arange(len(hit)), hcount)
-    within = np.arange(len(pair_hit)) - np.repeat(np.cumsum(hcount) - hcount, hcount)
-    pair_q = qorder[first_of[hbucket][pair_hit] + within]
-    hv = hval[pair_hit]
-    qv = qval[pair_q]
-    before = (hv < qv) | ((hv == qv) & (hcol[pair_hit] < qcol[pair_q]))
-    same = np.bincount(pair_q, weights=before, minlength=len(qrow)).astype(np.intp)
-    return lower + same  # 1 + points before it, minus the query point
+def _cross_ranks(head: _Head, other: np.ndarray, exact: int) -> np.ndarray:
+    """Ranks, in ``head``'s space, of the points listed in ``other`` (b, K).
 
-
-def _cross_ranks(view: _BucketedRows, rows: np.ndarray, other: np.ndarray) -> np.ndarray:
-    """Ranks, in ``view``'s space, of the points listed in ``other`` (b, K)."""
-    own = view.neighbours
-    b, k = own.shape
-    n = view.dist.shape[1]
-    row_base = (np.arange(b) * n)[:, None]
-    own_key = (own + row_base).ravel()
+    Columns ``< exact`` are exact; later columns hold ``min(rank, K + 1)``.
+    """
+    b, k = other.shape
+    n = head.dist.shape[1]
+    cols = head.cols
+    valid = np.arange(cols.shape[1]) < head.count[:, None]
+    row_base = (np.arange(b) * (n + 1))[:, None]
+    own_key = (cols + row_base)[valid]
+    own_pos = np.broadcast_to(np.arange(cols.shape[1]), cols.shape)[valid]
     order = np.argsort(own_key)
     sorted_key = own_key[order]
     other_key = (other + row_base).ravel()
     at = np.minimum(np.searchsorted(sorted_key, other_key), len(sorted_key) - 1)
     found = sorted_key[at] == other_key
-    ranks = np.empty(b * k, dtype=np.intp)
-    ranks[found] = order[at[found]] % k + 1
-    missing = np.flatnonzero(~found)
-    ranks[missing] = _count_ranks(view, rows, missing // k, other.ravel()[missing])
-    return ranks.reshape(b, k)
+    ranks = np.full(b * k, k + 1, dtype=np.intp)
+    ranks[found] = own_pos[order[at[found]]]  # position 0 is the query itself
+    missing = np.flatnonzero(~found & (np.arange(b * k) % k < exact))
+    if len(missing):
+        ranks[missing] = _count_ranks(head, missing // k, other.ravel()[missing])
+    ranks = ranks.reshape(b, k)
+    if exact < k:
+        np.minimum(ranks[:, exact:], k + 1, out=ranks[:, exact:])
+    return ranks
 
 
 @dataclass
@@ -174,9 +205,11 @@ class RankBlock:
     rows : ndarray of int, shape (b,)
         Query point indices.
     data_rank_of_embedding_nn : ndarray of int, shape (b, K)
-        ``[r, p]`` is the data-space rank of the ``p+1``-th embedding neighbour.
+        ``[r, p]`` is the data-space rank of the ``p+1``-th embedding neighbour
+        (``min(rank, K+1)`` from the walk's ``exact`` column on).
     embedding_rank_of_data_nn : ndarray of int, shape (b, K)
-        ``[r, p]`` is the embedding rank of the ``p+1``-th data neighbour.
+        ``[r, p]`` is the embedding rank of the ``p+1``-th data neighbour
+        (same convention).
     """
 
     rows: np.ndarray
@@ -184,8 +217,85 @@ class RankBlock:
     embedding_rank_of_data_nn: np.ndarray
 
 
+class _Scratch:
+    """Per-thread float32 copy of a sub-block."""
+
+    def __init__(self, sub: int, n: int) -> None:
+        self.low_x = np.empty((sub, n), dtype=np.float32)
+        self.low_y = np.empty((sub, n), dtype=np.float32)
+
+
+class RankWalk:
+    """Iterable over :class:`RankBlock` for the query points, block by block.
+
+    Parameters
+    ----------
+    data, embedding : DistanceRows
+        Distance rows of the two spaces (same ``n``).
+    queries : ndarray of int
+        Query point indices (all points for exact measures, a sample otherwise).
+    k : int
+        Neighbourhood size ``K``; ``1 <= K <= n - 2``.
+    block_rows : int
+        Query points per matrix product (see :mod:`harness.metrics._memory`).
+    exact : int, optional
+        Columns of the rank tables that hold exact ranks; the others hold
+        ``min(rank, K + 1)``.  Default ``K`` (all exact).
+    """
+
+    def __init__(self, data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, k: int,
+                 block_rows: int, exact: int | None = None) -> None:
+        self.data, self.embedding, self.queries = data, embedding, queries
+        self.k, self.block_rows = k, block_rows
+        self.exact = k if exact is None else max(0, min(k, exact))
+
+    def exact_up_to(self, columns: int) -> RankWalk:
+        """The same walk with exact ranks only in the first ``columns`` columns."""
+        return RankWalk(self.data, self.embedding, self.queries, self.k, self.block_rows, columns)
+
+    def _sub_block(self, dx: np.ndarray, dy: np.ndarray, part: np.ndarray,
+                   scratch: _Scratch) -> RankBlock:
+        b = len(part)
+        hx = _head(dx, part, self.k, scratch.low_x[:b])
+        hy = _head(dy, part, self.k, scratch.low_y[:b])
+        nx = hx.cols[:, 1:self.k + 1]
+        ny = hy.cols[:, 1:self.k + 1]
+        return RankBlock(part, _cross_ranks(hx, ny, self.exact), _cross_ranks(hy, nx, self.exact))
+
+    def __iter__(self) -> Iterator[RankBlock]:
+        n = self.data.n
+        queries = self.queries
+        rows_max = min(self.block_rows, len(queries))
+        sub = max(1, min(sub_rows_for(n), rows_max))
+        threads = THREADS if rows_max > sub else 1
+        scratch = [_Scratch(sub, n) for _ in range(threads)]
+        data_buf = np.empty((rows_max, n))
+        emb_buf = np.empty((rows_max, n))
+        pool = ThreadPoolExecutor(threads) if threads > 1 else None
+        try:
+            for start in range(0, len(queries), self.block_rows):
+                rows = np.asarray(queries[start:start + self.block_rows], dtype=np.intp)
+                dx = self.data.block(rows, out=data_buf[:len(rows)])
+                dy = self.embedding.block(rows, out=emb_buf[:len(rows)])
+                starts = range(0, len(rows), sub)
+                if pool is None:
+                    for s in starts:
+                        yield self._sub_block(dx[s:s + sub], dy[s:s + sub], rows[s:s + sub], scratch[0])
+                    continue
+                # Sub-blocks are independent; thread t always uses scratch[t].
+                def lane(t: int) -> list[RankBlock]:
+                    return [self._sub_block(dx[s:s + sub], dy[s:s + sub], rows[s:s + sub], scratch[t])
+                            for s in starts[t::threads]]
+                results = list(pool.map(lane, range(threads)))
+                for i in range(len(starts)):
+                    yield results[i % threads][i // threads]
+        finally:
+            if pool is not None:
+                pool.shutdown()
+
+
 def rank_blocks(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, k: int,
-                block_rows: int) -> Iterator[RankBlock]:
+                block_rows: int) -> RankWalk:
     """Walk the query points in blocks and yield their cross-space rank tables.
 
     Parameters
@@ -199,29 +309,11 @@ def rank_blocks(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray
     block_rows : int
         Query points per matrix product (see :mod:`harness.metrics._memory`).
 
-    Yields
-    ------
-    RankBlock
-        One per sub-block of :func:`sub_rows_for` query points; the bucket
-        work runs on sub-blocks so that its passes stay in cache.
+    Returns
+    -------
+    RankWalk
+        Iterable of :class:`RankBlock`, one per sub-block of
+        :func:`sub_rows_for` query points, in query order; all ranks exact
+        unless narrowed with :meth:`RankWalk.exact_up_to`.
     """
-    n = data.n
-    nb = buckets_per_row(n)
-    rows_max = min(block_rows, len(queries))
-    sub = max(1, min(sub_rows_for(n), rows_max))
-    data_buf = np.empty((rows_max, n))
-    emb_buf = np.empty((rows_max, n))
-    scratch = np.empty((sub, n))
-    data_bucket = np.empty((sub, n), dtype=np.intp)
-    emb_bucket = np.empty((sub, n), dtype=np.intp)
-    for start in range(0, len(queries), block_rows):
-        rows = np.asarray(queries[start:start + block_rows], dtype=np.intp)
-        data_rows = data.block(rows, out=data_buf[:len(rows)])
-        emb_rows = embedding.block(rows, out=emb_buf[:len(rows)])
-        for s in range(0, len(rows), sub):
-            part = rows[s:s + sub]
-            data_view = _bucketise(data_rows[s:s + sub], part, k, nb, scratch, data_bucket)
-            emb_view = _bucketise(emb_rows[s:s + sub], part, k, nb, scratch, emb_bucket)
-            yield RankBlock(part,
-                            _cross_ranks(data_view, part, emb_view.neighbours),
-                            _cross_ranks(emb_view, part, data_view.neighbours))
+    return RankWalk(data, embedding, queries, k, block_rows)

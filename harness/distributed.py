@@ -153,22 +153,32 @@ def _run(dd: ModuleType, client: Any, cells: list[Cell], datasets: dict[str, Dat
     held = {name: client.submit(_hold, datasets[name], key=f"foldbench-data-{name}-{token}", pure=False)
             for name in dict.fromkeys(c.dataset for c in cells)}
     parent_path = list(sys.path)
-    pending = {}
-    for cell in cells:
+    waiting = list(reversed(cells))
+    pending: dict[Any, Cell] = {}
+
+    def submit(cell: Cell) -> None:
         hit = cache.get(cell) if cache is not None else None
         future = client.submit(_task, cell, held[cell.dataset], scoring,
                                _KnownFit(hit) if hit is not None else None, time_limit, parent_path,
                                key=f"foldbench-cell-{cell.method}-{cell.key}-{token}", pure=False)
         pending[future] = cell
-    log.info("submitted %d cells to the Dask scheduler %s", len(cells), client.scheduler.address)
+
+    log.info("sending %d cells to the Dask scheduler %s", len(cells), client.scheduler.address)
     try:
-        while pending:
+        while pending or waiting:
             if stop.is_set():
                 client.cancel(list(pending))
-                for cell in pending.values():
+                for cell in [*pending.values(), *reversed(waiting)]:
                     yield CellResult(cell, "interrupted", "stopped: the run was interrupted")
                 pending.clear()
+                waiting.clear()
                 return
+            # No more cells in flight than worker threads: when a worker dies, Dask counts the
+            # death against every cell assigned to it, so a queue behind a crashing cell would
+            # make innocent cells fail too.  Counted anew each time, so workers may come and go.
+            capacity = max(1, sum(client.nthreads().values()))
+            while waiting and len(pending) < capacity:
+                submit(waiting.pop())
             try:
                 finished, _ = dd.wait(list(pending), timeout=_POLL, return_when="FIRST_COMPLETED")
             except TimeoutError:

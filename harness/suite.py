@@ -20,7 +20,7 @@ import yaml
 from ._params import validate_params
 from .datasets import Dataset, get_dataset_spec, load_dataset
 from .errors import InputError, suggest
-from .expect import parse_expectations, parse_tolerances
+from .expect import Expectation, parse_expectations, parse_tolerances
 from .methods import MethodSpec, get_method_spec
 from .metrics import MEASURES
 
@@ -120,8 +120,8 @@ class Suite:
     methods: tuple[MethodEntry, ...]
     scoring: Scoring
     run: RunSettings
-    expect: tuple[Mapping[str, Any], ...] = ()
-    tolerances: Mapping[str, Any] = field(default_factory=dict)
+    expect: tuple[Expectation, ...] = ()
+    tolerances: Mapping[str, Any] = field(default_factory=dict)  # measure -> Tolerance, plus "alpha"
     path: str = "<suite>"
     text: str = ""
 

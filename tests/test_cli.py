@@ -37,7 +37,7 @@ def finished_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("e2e")
     suite = root / "e2e.yaml"
     suite.write_text(SUITE)
-    code = main(["run", str(suite), "--out", str(root / "out"), "--jobs", "2", "--quiet"])
+    code = main(["run", str(suite), "--out", str(root / "out"), "--jobs", "2", "--quiet", "--no-report", "--no-cache"])
     runs = list((root / "out" / "e2e").iterdir())
     return code, runs
 
@@ -103,7 +103,7 @@ def test_run_on_a_single_table(tmp_path):
     frame["group"] = np.where(frame["a"] > 0, "up", "down")
     table = tmp_path / "my table.csv"
     frame.to_csv(table, index=False)
-    code = main(["run", "--table", str(table), "--label", "group", "--out", str(tmp_path / "out"), "--quiet"])
+    code = main(["run", "--table", str(table), "--label", "group", "--out", str(tmp_path / "out"), "--quiet", "--no-report", "--no-cache"])
     assert code == 0
     run = next((tmp_path / "out" / "my_table").iterdir())
     scores = pd.read_csv(run / "scores.csv")

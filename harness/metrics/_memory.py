@@ -3,33 +3,42 @@
 Block-size formula
     The neighbourhood engine computes the distance rows of a block of query
     points with one matrix product per space (8 bytes per point and row, two
-    spaces: ``ROW_BYTES_PER_POINT = 16``), then does the bucket work on
-    sub-blocks of at most 32 rows and about a million distances, which hold
-    about ``SUB_BYTES_PER_POINT = 64`` bytes per point and row (scratch row,
-    bucket ids of both spaces, bucket histograms of n buckets, masks).  With ``fixed`` bytes for the copied
-    inputs and result tables,
+    spaces: ``ROW_BYTES_PER_POINT = 16``), then ranks them on sub-blocks of
+    about ``SUB_ELEMENTS`` distances, one sub-block per thread at a time.  A
+    sub-block holds ``SUB_BYTES_PER_POINT = 12`` bytes per point and row (the
+    float32 copies of both spaces and an int32 position table) plus compare
+    masks of at most ``MASK_BYTES``.  With ``fixed`` bytes for the copied inputs
+    and result tables,
 
-        work = memory_bytes - fixed - SUB_BYTES_PER_POINT * sub_rows * n
-        block_rows = clamp(work // (ROW_BYTES_PER_POINT * n), 1, MAX_BLOCK_ROWS)
+        work = memory_bytes - fixed - threads * (SUB_BYTES_PER_POINT * sub_rows * n + MASK_BYTES)
+        block_rows = clamp(min(work, MAX_BLOCK_BYTES) // (ROW_BYTES_PER_POINT * n),
+                           1, MAX_BLOCK_ROWS)
 
-    ``MAX_BLOCK_ROWS`` is where the matrix product stops getting faster; the
-    budget only ever lowers it.
+    with at least ``MIN_BLOCK_ROWS`` rows whenever ``work`` allows them.
+    ``MAX_BLOCK_ROWS`` is where the matrix product stops getting faster;
+    ``MAX_BLOCK_BYTES`` keeps very long rows (n in the millions) from taking
+    gigabytes for no gain; the budget only ever lowers the result.
 """
 from __future__ import annotations
 
 import logging
 import os
 
-from ._ranks import sub_rows_for
+from ._ranks import MASK_BYTES, THREADS, sub_rows_for
 
 log = logging.getLogger(__name__)
 
 #: Bytes per (query row, point) of a block's distance rows (two spaces).
 ROW_BYTES_PER_POINT = 16
-#: Bytes per (query row, point) of the bucket work on a sub-block.
-SUB_BYTES_PER_POINT = 64
+#: Bytes per (query row, point) of a sub-block's scratch (float32 copies, position table).
+SUB_BYTES_PER_POINT = 12
 #: Upper limit on rows per block: the matrix product gains nothing beyond it.
 MAX_BLOCK_ROWS = 512
+#: Rows per block kept even when MAX_BLOCK_BYTES would allow fewer (the
+#: product re-reads the other factor once per block).
+MIN_BLOCK_ROWS = 64
+#: Size of a block's distance rows above which larger blocks bring nothing.
+MAX_BLOCK_BYTES = 2**28
 #: Cap of the default budget.
 DEFAULT_CAP_BYTES = 8 * 2**30
 #: Floor of the default budget.
@@ -48,6 +57,10 @@ def available_bytes() -> int:
 def default_memory_bytes() -> int:
     """A quarter of the available memory, between 256 MiB and 8 GiB."""
     return int(min(DEFAULT_CAP_BYTES, max(DEFAULT_FLOOR_BYTES, available_bytes() // 4)))
+
+
+def _scratch_bytes(n: int) -> int:
+    return THREADS * (SUB_BYTES_PER_POINT * sub_rows_for(n) * n + MASK_BYTES)
 
 
 def block_rows(n: int, n_queries: int, memory_bytes: int, fixed_bytes: int) -> int:
@@ -70,14 +83,11 @@ def block_rows(n: int, n_queries: int, memory_bytes: int, fixed_bytes: int) -> i
         At least 1; a warning is logged when even one row exceeds the budget.
     """
     per_row = ROW_BYTES_PER_POINT * n
-    rows = (memory_bytes - fixed_bytes - SUB_BYTES_PER_POINT * sub_rows_for(n) * n) // per_row
+    work = memory_bytes - fixed_bytes - _scratch_bytes(n)
+    rows = max(min(work, MAX_BLOCK_BYTES) // per_row, min(MIN_BLOCK_ROWS, work // per_row))
     if rows < 1:
         log.warning("memory budget of %d bytes is below one block row (%d bytes plus %d fixed); "
                     "using one row per block", memory_bytes, per_row, fixed_bytes)
         rows = 1
     return int(max(1, min(rows, MAX_BLOCK_ROWS, n_queries)))
 
-
-def memory_for_rows(n: int, rows: int, fixed_bytes: int) -> int:
-    """Smallest budget for which :func:`block_rows` gives ``rows`` (for tests and benchmarks)."""
-    return ROW_BYTES_PER_POINT * n * rows + SUB_BYTES_PER_POINT * sub_rows_for(n) * n + fixed_bytes

@@ -137,11 +137,10 @@ def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray) -> np.ndarray:
     value = dist[qrow, qcol]
     with np.errstate(over="ignore"):
         v32 = value.astype(np.float32)
-    # Lay the needed values out as (b, width), -inf in empty slots (counts 0).
+    # Lay the needed values out as (b, width), -inf in empty slots (counts 0);
+    # qrow is non-decreasing.
     per_row = np.bincount(qrow, minlength=b)
-    order = np.argsort(qrow, kind="stable")
-    slot = np.empty(len(qrow), dtype=np.intp)
-    slot[order] = np.arange(len(qrow)) - np.repeat(np.cumsum(per_row) - per_row, per_row)
+    slot = np.arange(len(qrow)) - np.repeat(np.cumsum(per_row) - per_row, per_row)
     width = int(per_row.max())
     table = np.full((b, width), -np.inf, dtype=np.float32)
     table[qrow, slot] = v32
@@ -161,36 +160,35 @@ def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray) -> np.ndarray:
     ranks = lt.copy()  # the query (-inf) stands in for the "1 +" of the rank
     # The point itself is always in upto - below; anything more shares its
     # float32 value and is resolved with the float64 distances.
-    for t in np.flatnonzero(upto[qrow, slot] - lt > 1):
+    for t in np.flatnonzero(upto[qrow, slot] - lt > 10**9):
         row = dist[qrow[t]]
         ranks[t] = (np.count_nonzero(row < value[t])
                     + np.count_nonzero(row[:qcol[t]] == value[t]))
     return ranks
 
 
-def _cross_ranks(head: _Head, other: np.ndarray, exact: int) -> np.ndarray:
+def _cross_ranks(head: _Head, other: np.ndarray, exact: int, where: np.ndarray) -> np.ndarray:
     """Ranks, in ``head``'s space, of the points listed in ``other`` (b, K).
 
     Columns ``< exact`` are exact; later columns hold ``min(rank, K + 1)``.
+    ``where`` is a (b, n) int32 scratch table holding -1 everywhere; it is
+    left that way on return.
     """
     b, k = other.shape
-    n = head.dist.shape[1]
     cols = head.cols
     valid = np.arange(cols.shape[1]) < head.count[:, None]
-    row_base = (np.arange(b) * (n + 1))[:, None]
-    own_key = (cols + row_base)[valid]
-    own_pos = np.broadcast_to(np.arange(cols.shape[1]), cols.shape)[valid]
-    order = np.argsort(own_key)
-    sorted_key = own_key[order]
-    other_key = (other + row_base).ravel()
-    at = np.minimum(np.searchsorted(sorted_key, other_key), len(sorted_key) - 1)
-    found = sorted_key[at] == other_key
-    ranks = np.full(b * k, k + 1, dtype=np.intp)
-    ranks[found] = own_pos[order[at[found]]]  # position 0 is the query itself
-    missing = np.flatnonzero(~found & (np.arange(b * k) % k < exact))
-    if len(missing):
-        ranks[missing] = _count_ranks(head, missing // k, other.ravel()[missing])
-    ranks = ranks.reshape(b, k)
+    crow = np.broadcast_to(np.arange(b)[:, None], cols.shape)[valid]
+    ccol = cols[valid]
+    where[crow, ccol] = np.broadcast_to(np.arange(cols.shape[1]), cols.shape)[valid]
+    orow = np.broadcast_to(np.arange(b)[:, None], other.shape)
+    ranks = where[orow, other].astype(np.intp)  # position 0 is the query itself
+    where[crow, ccol] = -1
+    missing = ranks < 0
+    ranks[missing] = k + 1  # not a candidate: beyond the K nearest
+    missing[:, exact:] = False
+    qrow, qpos = np.nonzero(missing)
+    if len(qrow):
+        ranks[qrow, qpos] = _count_ranks(head, qrow, other[qrow, qpos])
     if exact < k:
         np.minimum(ranks[:, exact:], k + 1, out=ranks[:, exact:])
     return ranks
@@ -218,11 +216,12 @@ class RankBlock:
 
 
 class _Scratch:
-    """Per-thread float32 copy of a sub-block."""
+    """Per-thread float32 copies of a sub-block and the candidate position table."""
 
     def __init__(self, sub: int, n: int) -> None:
         self.low_x = np.empty((sub, n), dtype=np.float32)
         self.low_y = np.empty((sub, n), dtype=np.float32)
+        self.where = np.full((sub, n), -1, dtype=np.int32)
 
 
 class RankWalk:
@@ -260,7 +259,9 @@ class RankWalk:
         hy = _head(dy, part, self.k, scratch.low_y[:b])
         nx = hx.cols[:, 1:self.k + 1]
         ny = hy.cols[:, 1:self.k + 1]
-        return RankBlock(part, _cross_ranks(hx, ny, self.exact), _cross_ranks(hy, nx, self.exact))
+        where = scratch.where[:b]
+        return RankBlock(part, _cross_ranks(hx, ny, self.exact, where),
+                        _cross_ranks(hy, nx, self.exact, where))
 
     def __iter__(self) -> Iterator[RankBlock]:
         n = self.data.n

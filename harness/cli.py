@@ -45,6 +45,10 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--time-limit", type=float, metavar="SECONDS", help="stop a cell that takes longer")
     run.add_argument("--quadratic-limit", type=int, metavar="N",
                      help="largest n for methods whose memory grows as n squared (default 20000)")
+    run.add_argument("--backend", choices=["local", "dask"],
+                     help="where cells run: child processes here (local, default) or a Dask cluster")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="with --backend dask: the scheduler to use (default: start a local cluster)")
     run.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run of the same suite")
     run.add_argument("--cache", metavar="DIR", help="embedding cache folder (default: the user cache folder)")
     run.add_argument("--no-cache", action="store_true", help="neither read nor fill the embedding cache")
@@ -119,6 +123,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
     try:
         outcome = run_suite(suite, args.out, jobs=args.jobs, time_limit=args.time_limit,
                             quadratic_limit=args.quadratic_limit, resume=args.resume, cache=cache,
+                            backend=args.backend, scheduler=args.scheduler,
                             progress=bar.update if bar else None)
     except RunInterrupted as stopped:
         if bar:

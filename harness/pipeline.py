@@ -23,7 +23,7 @@ from .methods import get_method_spec
 from .rank import overall_ranking, rank_within_datasets, resolve_rank_by, summarise
 from .report.tables import ranking_markdown
 from .runner import Execution, execute
-from .suite import Suite, load_datasets, load_suite
+from .suite import BACKENDS, Suite, load_datasets, load_suite
 
 log = logging.getLogger(__name__)
 
@@ -91,6 +91,7 @@ class RunInterrupted(Exception):
 def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: int | None = None,
               time_limit: float | None = None, quadratic_limit: int | None = None,
               resume: str | Path | None = None, cache: EmbeddingCache | str | Path | None = None,
+              backend: str | None = None, scheduler: str | None = None,
               isolate: bool = True, progress: ProgressHook | None = None) -> RunOutcome:
     """Fit every method on every dataset for every seed, score, rank and write the run folder.
 
@@ -110,6 +111,10 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
         A run folder of the same suite to continue: its finished cells are kept.
     cache : EmbeddingCache or path, optional
         Embedding cache to read and fill (``None``: no cache).
+    backend : {"local", "dask"}, optional
+        Where cells run (default: the suite's ``run.backend``, else local).
+    scheduler : str, optional
+        Address of a Dask scheduler (with the dask backend; none starts a local cluster).
     isolate : bool
         Run each cell in its own child process (time limits and crash isolation).
     progress : callable, optional
@@ -129,6 +134,12 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
         suite = load_suite(suite)
     if quadratic_limit is not None:
         suite = replace(suite, run=replace(suite.run, quadratic_limit=quadratic_limit))
+    backend = backend or suite.run.backend
+    scheduler = scheduler or suite.run.scheduler
+    if backend not in BACKENDS:
+        raise InputError("--backend", f"expected one of {', '.join(BACKENDS)}, got {backend!r}")
+    if scheduler and backend != "dask":
+        raise InputError("--scheduler", "expected only together with --backend dask")
     if cache is not None and not isinstance(cache, EmbeddingCache):
         cache = EmbeddingCache(Path(cache))
     datasets = load_datasets(suite)
@@ -142,6 +153,7 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
     else:
         run_dir = store.new_run_dir(out, suite.name)
         manifest = _manifest(suite, datasets, len(order))
+        manifest["backend"] = {"name": backend, "scheduler": scheduler}
         store.write_text(run_dir / "suite.yaml", suite.text)
         done_keys = set()
     store.write_manifest(run_dir, manifest)
@@ -158,8 +170,13 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
                           isolate=isolate)
     log.info("running %d cells (%d already done) with %d jobs into %s", len(todo), done, execution.jobs, run_dir)
     stop = threading.Event()
+    if backend == "dask":
+        from .distributed import execute_on_dask
+        results = execute_on_dask(todo, datasets, suite.scoring, execution, cache, stop, scheduler=scheduler)
+    else:
+        results = execute(todo, datasets, suite.scoring, execution, cache, stop)
     with _stop_on_ctrl_c(stop):
-        for result in execute(todo, datasets, suite.scoring, execution, cache, stop):
+        for result in results:
             if result.status == "interrupted":
                 continue
             store.write_cell(run_dir, result)

@@ -22,6 +22,8 @@ import tempfile
 import threading
 import time
 import traceback
+import types
+from contextlib import contextmanager
 from collections.abc import Iterator
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -235,6 +237,28 @@ def _context() -> mp.context.BaseContext:
     return _CONTEXT
 
 
+_START_LOCK = threading.Lock()
+
+
+@contextmanager
+def _main_module_hidden() -> Iterator[None]:
+    """Start children without the caller's ``__main__``.
+
+    multiprocessing re-imports the parent's main script in every child it starts
+    this way; a user's script without an ``if __name__ == "__main__"`` guard would
+    then run again in each cell, and code piped to ``python -`` cannot be found at
+    all.  Cells need nothing from ``__main__``, so children start from a blank one.
+    The lock keeps concurrent starts from seeing each other's swap.
+    """
+    with _START_LOCK:
+        main = sys.modules["__main__"]
+        sys.modules["__main__"] = types.ModuleType("__main__")
+        try:
+            yield
+        finally:
+            sys.modules["__main__"] = main
+
+
 def _supervise(cell: Cell, where: Path, scoring: Scoring, threads: int, time_limit: float | None,
                cache: EmbeddingCache | None, stop: threading.Event) -> CellResult:
     if stop.is_set():
@@ -243,7 +267,8 @@ def _supervise(cell: Cell, where: Path, scoring: Scoring, threads: int, time_lim
     receive, send = ctx.Pipe(duplex=False)
     proc = ctx.Process(target=_child, args=(cell, where, scoring, threads, cache, list(sys.path), send),
                        daemon=True)
-    proc.start()
+    with _main_module_hidden():
+        proc.start()
     send.close()
     t0 = None  # the clock starts when the child is running, not while the fork server warms up
     try:

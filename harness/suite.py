@@ -30,6 +30,7 @@ _SUITE_KEYS = ("name", "description", "seeds", "dimensions", "datasets", "method
                "run", "expect", "tolerances")
 _DATASET_KEYS = ("use", "name", "params")
 _METHOD_KEYS = ("use", "name", "params", "grid")
+BACKENDS = ("local", "dask")
 _SIZE_UNITS = {"": 1, "b": 1, "kb": 10**3, "mb": 10**6, "gb": 10**9, "kib": 2**10, "mib": 2**20,
                "gib": 2**30}
 
@@ -106,6 +107,8 @@ class RunSettings:
     jobs: int | None = None
     time_limit: float | None = None
     quadratic_limit: int = 20_000
+    backend: str = "local"
+    scheduler: str | None = None
 
 
 @dataclass(frozen=True)
@@ -347,7 +350,17 @@ def _run_settings(raw: Any, where: str) -> RunSettings:
     if raw is None:
         return RunSettings()
     raw = _mapping(raw, where, "run settings")
-    _no_unknown(raw, ("jobs", "time_limit", "quadratic_limit"), where)
+    _no_unknown(raw, ("jobs", "time_limit", "quadratic_limit", "backend", "scheduler"), where)
+    backend = raw.get("backend", "local")
+    if backend not in BACKENDS:
+        raise InputError(f"{where}.backend", f"expected one of {', '.join(BACKENDS)}, got {_show(backend)}"
+                                             f"{suggest(str(backend), BACKENDS)}")
+    scheduler = raw.get("scheduler")
+    if scheduler is not None and (not isinstance(scheduler, str) or not scheduler.strip()):
+        raise InputError(f"{where}.scheduler", f"expected a scheduler address such as "
+                                               f"tcp://10.0.0.5:8786, got {_show(scheduler)}")
+    if scheduler is not None and backend != "dask":
+        raise InputError(f"{where}.scheduler", "expected only together with backend: dask")
     jobs = raw.get("jobs")
     limit = raw.get("time_limit")
     if limit is not None and (isinstance(limit, bool) or not isinstance(limit, (int, float)) or limit <= 0):
@@ -356,6 +369,8 @@ def _run_settings(raw: Any, where: str) -> RunSettings:
         jobs=None if jobs is None else _int(jobs, f"{where}.jobs", low=1),
         time_limit=None if limit is None else float(limit),
         quadratic_limit=_int(raw.get("quadratic_limit", 20_000), f"{where}.quadratic_limit", low=10),
+        backend=backend,
+        scheduler=scheduler,
     )
 
 

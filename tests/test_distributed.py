@@ -194,3 +194,32 @@ def test_importing_the_package_does_not_import_dask():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
     assert out.stdout.strip() == "[]"
+
+
+@pytest.mark.slow
+def test_the_command_line_runs_a_suite_on_a_cluster(cluster, tmp_path):
+    from harness.cli import main
+    import pandas as pd
+
+    suite = tmp_path / "onc.yaml"
+    suite.write_text("name: onc\nseeds: 2\ndatasets:\n  - use: iris\n  - use: rolled_sheet\n"
+                     "    params: {n: 150}\nmethods:\n  - use: pca\n  - use: isomap\n"
+                     "  - use: tsne\n    params: {perplexity: 10}\nmeasures:\n  k: [5, 10]\n")
+    address = cluster.scheduler_address
+    for backend in (["--backend", "dask", "--scheduler", address], ["--backend", "local"]):
+        code = main(["run", str(suite), "--out", str(tmp_path / backend[1]), "--jobs", "2", "--quiet",
+                     "--no-report", "--no-cache"] + backend)
+        assert code == 0
+    frames = [pd.read_csv(next((tmp_path / b / "onc").iterdir()) / "scores.csv") for b in ("dask", "local")]
+    values = [f.sort_values("key").filter(regex="@|stress|spearman").to_numpy() for f in frames]
+    # the same seeds give the same scores on both backends
+    np.testing.assert_allclose(values[0], values[1], rtol=0, atol=1e-12)
+    manifest = (next((tmp_path / "dask" / "onc").iterdir()) / "manifest.json").read_text()
+    assert address in manifest
+
+
+def test_a_scheduler_needs_the_dask_backend():
+    with pytest.raises(InputError, match="run.scheduler: expected only together with backend: dask"):
+        parse_suite("name: x\ndatasets: [iris]\nmethods: [pca]\nrun: {scheduler: 'tcp://h:1'}\n", "s.yaml")
+    with pytest.raises(InputError, match="run.backend: expected one of local, dask"):
+        parse_suite("name: x\ndatasets: [iris]\nmethods: [pca]\nrun: {backend: dusk}\n", "s.yaml")

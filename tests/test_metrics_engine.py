@@ -70,11 +70,13 @@ def test_narrowed_walk_caps_late_columns():
 
 
 def test_distances_closer_than_float32_resolution():
-    # Distances that differ by ~1e-12 (one float32 value for all of them) must
-    # still be ordered by their float64 values, then by index.
+    # A third of the distances sit at 2 + {0..4} * 1e-12 (one float32 value),
+    # beyond the nearest neighbours: their ranks must still follow the float64
+    # values, then the index.
     r = np.random.default_rng(7)
-    n, k = 120, 20
-    base = 1.0 + r.integers(0, 5, (n, n)) * 1e-12
+    n, k = 150, 20
+    base = np.where(r.random((n, n)) < 0.35, 2.0 + r.integers(0, 5, (n, n)) * 1e-12,
+                    r.uniform(0.5, 3.0, (n, n)))
     d = np.triu(base, 1)
     d = d + d.T
     y = r.standard_normal((n, 2))

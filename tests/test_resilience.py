@@ -172,3 +172,20 @@ def test_ctrl_c_stops_cleanly_and_says_how_to_resume(tmp_path):
     assert "Traceback" not in err
     run_dir = next((tmp_path / "out" / "tough").iterdir())
     assert (run_dir / "scores.csv").is_file()
+
+
+def test_a_script_without_a_main_guard_runs_once(tmp_path):
+    # Children must not re-run the caller's script (multiprocessing would re-import it).
+    suite = suite_file(tmp_path, "  - use: pca\n", seeds=2)
+    script = tmp_path / "unguarded.py"
+    script.write_text(f"from harness import run_suite\nprint('SCRIPT RAN', flush=True)\n"
+                      f"o = run_suite({str(suite)!r}, {str(tmp_path / 'out')!r}, jobs=2)\n"
+                      "print('CELLS', o.counts)\n")
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS.parent), os.environ.get("PYTHONPATH", "")]))
+    proc = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, env=env, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.count("SCRIPT RAN") == 1
+    assert "CELLS {'ok': 4}" in proc.stdout
+    piped = subprocess.run([sys.executable, "-"], input=script.read_text(), capture_output=True, text=True,
+                           env=env, timeout=120)
+    assert "CELLS {'ok': 4}" in piped.stdout, piped.stderr[-500:]

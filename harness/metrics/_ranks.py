@@ -52,11 +52,11 @@ import numpy as np
 from ._distances import DistanceRows
 
 #: Distances per sub-block: its float32 copy and compare masks stay in a core's L2 cache.
-SUB_ELEMENTS = 2**17
+SUB_ELEMENTS = 2**18
 #: Largest group of columns reduced to one minimum when looking for the threshold.
 MAX_GROUP = 32
 #: Bytes of compare masks per sub-block (bounds the values counted per pass).
-MASK_BYTES = 2**21
+MASK_BYTES = 2**22
 #: Threads that share the row work of a block (numpy releases the GIL in its passes).
 THREADS = max(1, min(2, os.cpu_count() or 1))
 
@@ -129,11 +129,14 @@ def _count_true(mask: np.ndarray) -> np.ndarray:
     return total
 
 
-def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray) -> np.ndarray:
-    """Exact ranks of points ``qcol`` (not candidates) for the block-local rows ``qrow``."""
+def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray, masks: np.ndarray) -> np.ndarray:
+    """Exact ranks of points ``qcol`` (not candidates) for the block-local rows ``qrow``.
+
+    ``masks`` is a bool scratch array of shape (>= b, c, padded n) whose
+    columns from n on are False.
+    """
     dist, low = head.dist, head.low
     b, n = dist.shape
-    npad = _padded(n)
     value = dist[qrow, qcol]
     with np.errstate(over="ignore"):
         v32 = value.astype(np.float32)
@@ -146,8 +149,8 @@ def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray) -> np.ndarray:
     table[qrow, slot] = v32
     below = np.empty((b, width), dtype=np.int64)
     upto = np.empty((b, width), dtype=np.int64)
-    step = mask_values_for(b, n)
-    mask = np.zeros((b, min(step, width), npad), dtype=bool)
+    step = masks.shape[1]
+    mask = masks[:b]
     for s in range(0, width, step):
         part = table[:, s:s + step, None]
         c = part.shape[1]
@@ -160,19 +163,20 @@ def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray) -> np.ndarray:
     ranks = lt.copy()  # the query (-inf) stands in for the "1 +" of the rank
     # The point itself is always in upto - below; anything more shares its
     # float32 value and is resolved with the float64 distances.
-    for t in np.flatnonzero(upto[qrow, slot] - lt > 10**9):
+    for t in np.flatnonzero(upto[qrow, slot] - lt > 1):
         row = dist[qrow[t]]
         ranks[t] = (np.count_nonzero(row < value[t])
                     + np.count_nonzero(row[:qcol[t]] == value[t]))
     return ranks
 
 
-def _cross_ranks(head: _Head, other: np.ndarray, exact: int, where: np.ndarray) -> np.ndarray:
+def _cross_ranks(head: _Head, other: np.ndarray, exact: int, where: np.ndarray,
+                 masks: np.ndarray) -> np.ndarray:
     """Ranks, in ``head``'s space, of the points listed in ``other`` (b, K).
 
     Columns ``< exact`` are exact; later columns hold ``min(rank, K + 1)``.
     ``where`` is a (b, n) int32 scratch table holding -1 everywhere; it is
-    left that way on return.
+    left that way on return.  ``masks``: see :func:`_count_ranks`.
     """
     b, k = other.shape
     cols = head.cols
@@ -188,7 +192,7 @@ def _cross_ranks(head: _Head, other: np.ndarray, exact: int, where: np.ndarray) 
     missing[:, exact:] = False
     qrow, qpos = np.nonzero(missing)
     if len(qrow):
-        ranks[qrow, qpos] = _count_ranks(head, qrow, other[qrow, qpos])
+        ranks[qrow, qpos] = _count_ranks(head, qrow, other[qrow, qpos], masks)
     if exact < k:
         np.minimum(ranks[:, exact:], k + 1, out=ranks[:, exact:])
     return ranks
@@ -216,12 +220,14 @@ class RankBlock:
 
 
 class _Scratch:
-    """Per-thread float32 copies of a sub-block and the candidate position table."""
+    """Per-thread float32 copies of a sub-block, candidate position table and compare masks."""
 
     def __init__(self, sub: int, n: int) -> None:
         self.low_x = np.empty((sub, n), dtype=np.float32)
         self.low_y = np.empty((sub, n), dtype=np.float32)
         self.where = np.full((sub, n), -1, dtype=np.int32)
+        # Zero padding past column n lets the masks be read as whole 8-byte words.
+        self.masks = np.zeros((sub, mask_values_for(sub, n), _padded(n)), dtype=bool)
 
 
 class RankWalk:
@@ -260,8 +266,8 @@ class RankWalk:
         nx = hx.cols[:, 1:self.k + 1]
         ny = hy.cols[:, 1:self.k + 1]
         where = scratch.where[:b]
-        return RankBlock(part, _cross_ranks(hx, ny, self.exact, where),
-                        _cross_ranks(hy, nx, self.exact, where))
+        return RankBlock(part, _cross_ranks(hx, ny, self.exact, where, scratch.masks),
+                        _cross_ranks(hy, nx, self.exact, where, scratch.masks))
 
     def __iter__(self) -> Iterator[RankBlock]:
         n = self.data.n

@@ -207,6 +207,21 @@ def _seeds(raw: Any, where: str) -> tuple[int, ...]:
     return seeds
 
 
+def _entry(item: Any, at: str, keys: tuple[str, ...], what: str, use_hint: str
+           ) -> tuple[Mapping[str, Any], str]:
+    """A dataset or method entry: a bare name or a mapping with ``use``; returns (entry, use)."""
+    if isinstance(item, str):
+        item = {"use": item}
+    item = _mapping(item, at, f"a {what}")
+    _no_unknown(item, keys, at)
+    if "use" not in item:
+        raise InputError(f"{at}.use", f"missing: {use_hint}")
+    use = item["use"]
+    if not isinstance(use, str):
+        raise InputError(f"{at}.use", f"expected a {what} name, got {_show(use)}")
+    return item, use
+
+
 def _dataset_entries(raw: Any, where: str, base: Path) -> tuple[DatasetEntry, ...]:
     items = _list(raw, where, "datasets")
     if not items:
@@ -214,15 +229,7 @@ def _dataset_entries(raw: Any, where: str, base: Path) -> tuple[DatasetEntry, ..
     out: list[DatasetEntry] = []
     for i, item in enumerate(items):
         at = f"{where}[{i}]"
-        if isinstance(item, str):
-            item = {"use": item}
-        item = _mapping(item, at, "a dataset")
-        _no_unknown(item, _DATASET_KEYS, at)
-        if "use" not in item:
-            raise InputError(f"{at}.use", "missing: the registry name of the dataset")
-        use = item["use"]
-        if not isinstance(use, str):
-            raise InputError(f"{at}.use", f"expected a dataset name, got {_show(use)}")
+        item, use = _entry(item, at, _DATASET_KEYS, "dataset", "the registry name of the dataset")
         spec = get_dataset_spec(use, f"{at}.use")
         params = validate_params(item.get("params"), spec.params, f"{at}.params")
         for key in _PATH_PARAMS:
@@ -244,15 +251,8 @@ def _method_entries(raw: Any, where: str) -> tuple[MethodEntry, ...]:
     out: list[MethodEntry] = []
     for i, item in enumerate(items):
         at = f"{where}[{i}]"
-        if isinstance(item, str):
-            item = {"use": item}
-        item = _mapping(item, at, "a method")
-        _no_unknown(item, _METHOD_KEYS, at)
-        if "use" not in item:
-            raise InputError(f"{at}.use", "missing: a registry name or a plug-in 'package.module:Name'")
-        use = item["use"]
-        if not isinstance(use, str):
-            raise InputError(f"{at}.use", f"expected a method name, got {_show(use)}")
+        item, use = _entry(item, at, _METHOD_KEYS, "method",
+                           "a registry name or a plug-in 'package.module:Name'")
         spec = get_method_spec(use, f"{at}.use")
         params = validate_params(item.get("params"), spec.params, f"{at}.params", fill_defaults=False)
         grid = _grid(item.get("grid"), spec, params, f"{at}.grid")

@@ -4,8 +4,10 @@ An entry is named by a hash of everything that decides the embedding: the
 dataset's fingerprint, the method (for a plug-in also its package version and
 the bytes of its module file), its parameters, the output dimension, the seed,
 and the versions of the libraries that compute it.  Change any of them and the
-entry is simply not found.  Only the parent process writes entries (atomically);
-children only read.
+entry is simply not found.  Each entry also keeps the scores of its embedding
+under every scoring setting it was scored with, so a finished cell run again
+with the same settings costs neither a fit nor a score.  Only the parent process
+writes entries (atomically); children only read.
 """
 from __future__ import annotations
 
@@ -14,17 +16,19 @@ import importlib.util
 import json
 import logging
 import shutil
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import platformdirs
 
-from .cells import Cell
+from .cells import Cell, CellResult
 from .manifest import package_versions
 from .store import write_json, write_npy
+from .suite import Scoring
 
 log = logging.getLogger(__name__)
 
@@ -71,6 +75,20 @@ def cache_key(cell: Cell) -> str:
     return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()[:32]
 
 
+def scoring_digest(scoring: Scoring) -> str:
+    """Hash of the scoring settings and the measuring code's version (a cached score's name)."""
+    doc = {"scoring": asdict(scoring), "libraries": _library_versions()}
+    return hashlib.sha256(json.dumps(doc, sort_keys=True, default=str).encode()).hexdigest()[:16]
+
+
+def _float(value: Any) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def _floats(values: dict[str, Any]) -> dict[str, float]:
+    return {k: _float(v) for k, v in values.items()}
+
+
 @dataclass(frozen=True)
 class CacheEntry:
     """A cached embedding with the cost of the fit that made it."""
@@ -115,7 +133,48 @@ class EmbeddingCache:
         write_npy(npy, embedding)
         write_json(meta, {"cell": {"dataset": cell.dataset, "method": cell.method, "use": cell.use,
                                    "params": cell.params_text, "seed": cell.seed},
-                          "fit_seconds": fit_seconds, "fit_peak_mb": fit_peak_mb})
+                          "fit_seconds": fit_seconds, "fit_peak_mb": fit_peak_mb, "scores": {}})
+
+    def put_result(self, result: CellResult, scoring: Scoring) -> None:
+        """Store an ok cell: its embedding if new, and its scores under these scoring settings."""
+        cell = result.cell
+        npy, meta = self._paths(cache_key(cell))
+        if not result.from_cache or not meta.exists():
+            self.put(cell, result.embedding, result.fit_seconds, result.fit_peak_mb)
+        try:
+            info = json.loads(meta.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            return
+        curve = None if result.curve is None else result.curve.to_dict(orient="list")
+        info.setdefault("scores", {})[scoring_digest(scoring)] = {
+            "values": result.values, "halfwidths": result.halfwidths, "estimated": list(result.estimated),
+            "curve": curve, "score_seconds": result.score_seconds, "warnings": list(result.warnings)}
+        write_json(meta, info)
+
+    def get_result(self, cell: Cell, scoring: Scoring) -> CellResult | None:
+        """A finished ok result of ``cell`` scored under these settings, or ``None``.
+
+        Nothing runs for such a cell: no fit, no scoring, no child process.
+        """
+        npy, meta = self._paths(cache_key(cell))
+        try:
+            info = json.loads(meta.read_text(encoding="utf-8"))
+            scored = (info.get("scores") or {}).get(scoring_digest(scoring))
+            if scored is None:
+                return None
+            embedding = np.load(npy, allow_pickle=False)
+        except (OSError, ValueError):
+            return None
+        if embedding.shape[1:] != (cell.dimensions,):
+            return None
+        curve = None if scored.get("curve") is None else pd.DataFrame(scored["curve"])
+        return CellResult(cell, "ok", embedding=embedding, values=_floats(scored["values"]),
+                          halfwidths=_floats(scored.get("halfwidths") or {}),
+                          estimated=tuple(scored.get("estimated") or ()), curve=curve,
+                          fit_seconds=_float(info.get("fit_seconds")),
+                          fit_peak_mb=_float(info.get("fit_peak_mb")),
+                          score_seconds=_float(scored.get("score_seconds")), from_cache=True,
+                          warnings=tuple(scored.get("warnings") or ()))
 
     def info(self) -> dict[str, Any]:
         """Number of entries and bytes used."""

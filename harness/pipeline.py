@@ -170,6 +170,14 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
                           isolate=isolate)
     log.info("running %d cells (%d already done) with %d jobs into %s", len(todo), done, execution.jobs, run_dir)
     stop = threading.Event()
+    if cache is not None:
+        finished = {c.key: cache.get_result(c, suite.scoring) for c in todo}
+        for result in filter(None, finished.values()):
+            store.write_cell(run_dir, result)
+            done += 1
+            if progress:
+                progress(result, done, total)
+        todo = [c for c in todo if finished[c.key] is None]
     if backend == "dask":
         from .distributed import execute_on_dask
         results = execute_on_dask(todo, datasets, suite.scoring, execution, cache, stop, scheduler=scheduler)
@@ -180,8 +188,8 @@ def run_suite(suite: Suite | str | Path, out: str | Path = "results", *, jobs: i
             if result.status == "interrupted":
                 continue
             store.write_cell(run_dir, result)
-            if cache is not None and result.status == "ok" and not result.from_cache:
-                cache.put(result.cell, result.embedding, result.fit_seconds, result.fit_peak_mb)
+            if cache is not None and result.status == "ok":
+                cache.put_result(result, suite.scoring)
             done += 1
             if progress:
                 progress(result, done, total)

@@ -159,7 +159,8 @@ def test_cached_fits_are_sent_with_the_cell_and_only_scored(cluster, tmp_path):
                                    scheduler=cluster.scheduler_address))
     for key, r in again.items():
         assert r.status == "ok" and r.from_cache
-        assert r.values == first[key].values
+        # scored again on a worker: equal up to BLAS summation order (silhouette's distances)
+        assert r.values == pytest.approx(first[key].values, rel=1e-12, abs=1e-15)
         assert r.fit_seconds == first[key].fit_seconds
 
 

@@ -12,6 +12,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -104,6 +105,9 @@ def test_cache_makes_a_second_run_skip_the_fits(tmp_path):
     assert cache.info()["entries"] == 4
     second = run_suite(suite, tmp_path / "out", jobs=2, cache=cache)
     assert second.scores["from_cache"].all()
+    # fits and scores both come from the cache: the stored score times are the first run's
+    np.testing.assert_array_equal(second.scores.sort_values("key")["score_seconds"],
+                                  first.scores.sort_values("key")["score_seconds"])
     pd.testing.assert_frame_equal(comparable(first.scores.drop(columns="key")),
                                   comparable(second.scores.drop(columns="key")))
     assert main(["cache", "info", "--cache", str(tmp_path / "cache")]) == 0
@@ -189,3 +193,13 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path):
     piped = subprocess.run([sys.executable, "-"], input=script.read_text(), capture_output=True, text=True,
                            env=env, timeout=120)
     assert "CELLS {'ok': 4}" in piped.stdout, piped.stderr[-500:]
+
+
+def test_new_scoring_settings_reuse_the_fits_but_score_again(tmp_path):
+    cache = EmbeddingCache(tmp_path / "cache")
+    first = run_suite(suite_file(tmp_path, "  - use: pca\n", seeds=1), tmp_path / "out", cache=cache)
+    changed = suite_file(tmp_path, "  - use: pca\n", seeds=1).read_text().replace("k: [5]", "k: [7]")
+    (tmp_path / "k7.yaml").write_text(changed)
+    second = run_suite(tmp_path / "k7.yaml", tmp_path / "out", cache=cache)
+    assert second.scores["from_cache"].all()
+    assert "trustworthiness@7" in second.scores and "trustworthiness@7" not in first.scores

@@ -4,14 +4,14 @@ Block-size formula
     The neighbourhood engine computes the distance rows of a block of query
     points with one matrix product per space (8 bytes per point and row, two
     spaces: ``ROW_BYTES_PER_POINT = 16``), then ranks them on sub-blocks of
-    about ``SUB_ELEMENTS`` distances, one sub-block per thread at a time.  A
-    sub-block holds ``SUB_BYTES_PER_POINT = 12`` bytes per point and row (the
+    about ``SUB_ELEMENTS`` distances.  Each of ``threads`` threads holds one
+    block at a time.  A sub-block holds ``SUB_BYTES_PER_POINT = 12`` bytes per point and row (the
     float32 copies of both spaces and an int32 position table) plus compare
     masks of at most ``MASK_BYTES``.  With ``fixed`` bytes for the copied inputs
     and result tables,
 
         work = memory_bytes - fixed - threads * (SUB_BYTES_PER_POINT * sub_rows * n + MASK_BYTES)
-        block_rows = clamp(min(work, MAX_BLOCK_BYTES) // (ROW_BYTES_PER_POINT * n),
+        block_rows = clamp(min(work, MAX_BLOCK_BYTES) // (threads * ROW_BYTES_PER_POINT * n),
                            1, MAX_BLOCK_ROWS)
 
     with at least ``MIN_BLOCK_ROWS`` rows whenever ``work`` allows them.
@@ -82,7 +82,7 @@ def block_rows(n: int, n_queries: int, memory_bytes: int, fixed_bytes: int) -> i
     int
         At least 1; a warning is logged when even one row exceeds the budget.
     """
-    per_row = ROW_BYTES_PER_POINT * n
+    per_row = ROW_BYTES_PER_POINT * THREADS * n  # each thread holds its own block
     work = memory_bytes - fixed_bytes - _scratch_bytes(n)
     rows = max(min(work, MAX_BLOCK_BYTES) // per_row, min(MIN_BLOCK_ROWS, work // per_row))
     if rows < 1:

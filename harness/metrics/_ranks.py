@@ -48,6 +48,7 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from ._distances import DistanceRows
 
@@ -57,7 +58,7 @@ SUB_ELEMENTS = 2**18
 MAX_GROUP = 32
 #: Bytes of compare masks per sub-block (bounds the values counted per pass).
 MASK_BYTES = 2**22
-#: Threads that share the row work of a block (numpy releases the GIL in its passes).
+#: Threads that each compute and rank their own blocks (numpy and BLAS release the GIL).
 THREADS = max(1, min(2, os.cpu_count() or 1))
 
 
@@ -271,34 +272,44 @@ class RankWalk:
 
     def __iter__(self) -> Iterator[RankBlock]:
         n = self.data.n
-        queries = self.queries
-        rows_max = min(self.block_rows, len(queries))
-        sub = max(1, min(sub_rows_for(n), rows_max))
-        threads = THREADS if rows_max > sub else 1
-        scratch = [_Scratch(sub, n) for _ in range(threads)]
-        data_buf = np.empty((rows_max, n))
-        emb_buf = np.empty((rows_max, n))
-        pool = ThreadPoolExecutor(threads) if threads > 1 else None
-        try:
-            for start in range(0, len(queries), self.block_rows):
-                rows = np.asarray(queries[start:start + self.block_rows], dtype=np.intp)
-                dx = self.data.block(rows, out=data_buf[:len(rows)])
-                dy = self.embedding.block(rows, out=emb_buf[:len(rows)])
-                starts = range(0, len(rows), sub)
-                if pool is None:
-                    for s in starts:
-                        yield self._sub_block(dx[s:s + sub], dy[s:s + sub], rows[s:s + sub], scratch[0])
-                    continue
-                # Sub-blocks are independent; thread t always uses scratch[t].
-                def lane(t: int) -> list[RankBlock]:
-                    return [self._sub_block(dx[s:s + sub], dy[s:s + sub], rows[s:s + sub], scratch[t])
-                            for s in starts[t::threads]]
-                results = list(pool.map(lane, range(threads)))
-                for i in range(len(starts)):
-                    yield results[i % threads][i // threads]
-        finally:
-            if pool is not None:
-                pool.shutdown()
+        step = self.block_rows
+        starts = list(range(0, len(self.queries), step))
+        rows_max = min(step, len(self.queries))
+        lanes = max(1, min(THREADS, len(starts)))
+        workers = [_Lane(self, rows_max) for _ in range(lanes)]
+        if lanes == 1:
+            for start in starts:
+                yield from workers[0].rank(start)
+            return
+        # Each lane computes its own blocks' products with a single-threaded
+        # BLAS and ranks them: both cores stay busy, and no idle BLAS thread
+        # spins against the ranking passes (which made them ~3x slower).
+        with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(lanes) as pool:
+            for i in range(0, len(starts), lanes):
+                futures = [pool.submit(lane.rank, start) for lane, start in zip(workers, starts[i:i + lanes])]
+                for future in futures:
+                    yield from future.result()
+
+
+class _Lane:
+    """Buffers of one thread: a block's distance rows in both spaces and sub-block scratch."""
+
+    def __init__(self, walk: RankWalk, rows_max: int) -> None:
+        n = walk.data.n
+        self.walk = walk
+        self.sub = max(1, min(sub_rows_for(n), rows_max))
+        self.scratch = _Scratch(self.sub, n)
+        self.data_buf = np.empty((rows_max, n))
+        self.emb_buf = np.empty((rows_max, n))
+
+    def rank(self, start: int) -> list[RankBlock]:
+        """Rank tables of the block of queries starting at position ``start``."""
+        walk, sub = self.walk, self.sub
+        rows = np.asarray(walk.queries[start:start + walk.block_rows], dtype=np.intp)
+        dx = walk.data.block(rows, out=self.data_buf[:len(rows)])
+        dy = walk.embedding.block(rows, out=self.emb_buf[:len(rows)])
+        return [walk._sub_block(dx[s:s + sub], dy[s:s + sub], rows[s:s + sub], self.scratch)
+                for s in range(0, len(rows), sub)]
 
 
 def rank_blocks(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, k: int,

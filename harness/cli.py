@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import re
 import sys
 from collections import Counter
@@ -234,7 +235,8 @@ def _cmd_list(args: argparse.Namespace) -> int:
             extra = f"  [{spec.family}{'; takes distances' if spec.accepts_distances else ''}]"
         print(f"{spec.name}{extra}\n    {spec.description}")
         for p in spec.params:
-            default = "required" if p.default is None and p.name == "path" else f"default {p.default!r}"
+            default = ("required" if p.name == "path" else "default: not set") if p.default is None \
+                else f"default {p.default!r}"
             choices = f"; one of {', '.join(map(str, p.choices))}" if p.choices else ""
             print(f"    - {p.name} ({p.type_name()}, {default}{choices}): {p.doc}")
     return EXIT_OK
@@ -317,6 +319,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("foldbench: interrupted", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        # the reader went away (e.g. `foldbench list methods | head`): stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
 
 
 if __name__ == "__main__":

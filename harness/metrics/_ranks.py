@@ -278,7 +278,6 @@ class RankWalk:
                         _cross_ranks(hy, nx, self.exact, where, scratch.masks))
 
     def __iter__(self) -> Iterator[RankBlock]:
-        n = self.data.n
         step = self.block_rows
         starts = list(range(0, len(self.queries), step))
         rows_max = min(step, len(self.queries))

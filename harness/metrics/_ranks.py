@@ -55,7 +55,7 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
-from threadpoolctl import threadpool_limits
+from threadpoolctl import threadpool_info, threadpool_limits
 
 from ._distances import DistanceRows
 
@@ -281,7 +281,7 @@ class RankWalk:
         step = self.block_rows
         starts = list(range(0, len(self.queries), step))
         rows_max = min(step, len(self.queries))
-        lanes = max(1, min(THREADS, len(starts)))
+        lanes = max(1, min(THREADS, len(starts), _thread_budget()))
         workers = [_Lane(self, rows_max) for _ in range(lanes)]
         if lanes == 1:
             for start in starts:
@@ -295,6 +295,12 @@ class RankWalk:
                 futures = [pool.submit(lane.rank, start) for lane, start in zip(workers, starts[i:i + lanes])]
                 for future in futures:
                     yield from future.result()
+
+
+def _thread_budget() -> int:
+    """Threads the caller allows: the BLAS limit in force (the runner sets it per cell)."""
+    blas = [lib["num_threads"] for lib in threadpool_info() if lib.get("user_api") == "blas"]
+    return max(blas) if blas else THREADS
 
 
 class _Lane:

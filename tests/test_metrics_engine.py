@@ -7,19 +7,8 @@ import pytest
 from harness.metrics import score
 from harness.metrics._distances import DistanceRows
 from harness.metrics._ranks import rank_blocks
+from naive_ranks import full_sort_ranks, squared_distances
 
-
-def _full_sort_ranks(dist: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Reference: rank[i, j] and neighbour order from a lexsort by (distance, index), query left out."""
-    n = len(dist)
-    rank = np.zeros((n, n), dtype=int)
-    order = np.empty((n, n - 1), dtype=int)
-    for i in range(n):
-        o = np.lexsort((np.arange(n), dist[i]))
-        o = o[o != i]
-        order[i] = o
-        rank[i, o] = np.arange(1, n)
-    return rank, order
 
 
 def _tables(x_rows: DistanceRows, y_rows: DistanceRows, n: int, k: int, exact: int | None = None):
@@ -32,9 +21,6 @@ def _tables(x_rows: DistanceRows, y_rows: DistanceRows, n: int, k: int, exact: i
             np.vstack([b.embedding_rank_of_data_nn for b in blocks]))
 
 
-def _sq(z: np.ndarray) -> np.ndarray:
-    return ((z[:, None, :] - z[None, :, :]) ** 2).sum(-1)
-
 
 @pytest.mark.parametrize("integer", [False, True])
 def test_threaded_sub_blocks_match_full_sort(integer):
@@ -46,8 +32,8 @@ def test_threaded_sub_blocks_match_full_sort(integer):
         x, y = r.integers(0, 4, (n, 5)).astype(float), r.integers(0, 6, (n, 2)).astype(float)
     else:
         x, y = r.standard_normal((n, 6)), r.standard_normal((n, 2))
-    rx, ox = _full_sort_ranks(_sq(x))
-    ry, oy = _full_sort_ranks(_sq(y))
+    rx, ox = full_sort_ranks(squared_distances(x))
+    ry, oy = full_sort_ranks(squared_distances(y))
     rho, rr = _tables(DistanceRows(points=x), DistanceRows(points=y), n, k)
     np.testing.assert_array_equal(rho, np.take_along_axis(rx, oy[:, :k], 1))
     np.testing.assert_array_equal(rr, np.take_along_axis(ry, ox[:, :k], 1))
@@ -58,8 +44,8 @@ def test_narrowed_walk_caps_late_columns():
     r = np.random.default_rng(6)
     n, k, exact = 300, 30, 7
     x, y = r.standard_normal((n, 8)), r.standard_normal((n, 2))
-    rx, ox = _full_sort_ranks(_sq(x))
-    ry, oy = _full_sort_ranks(_sq(y))
+    rx, ox = full_sort_ranks(squared_distances(x))
+    ry, oy = full_sort_ranks(squared_distances(y))
     rho, rr = _tables(DistanceRows(points=x), DistanceRows(points=y), n, k, exact)
     want_rho = np.take_along_axis(rx, oy[:, :k], 1)
     want_rr = np.take_along_axis(ry, ox[:, :k], 1)
@@ -80,8 +66,8 @@ def test_distances_closer_than_float32_resolution():
     d = np.triu(base, 1)
     d = d + d.T
     y = r.standard_normal((n, 2))
-    rx, ox = _full_sort_ranks(d)
-    ry, oy = _full_sort_ranks(_sq(y))
+    rx, ox = full_sort_ranks(d)
+    ry, oy = full_sort_ranks(squared_distances(y))
     rho, rr = _tables(DistanceRows(matrix=d), DistanceRows(points=y), n, k)
     np.testing.assert_array_equal(rho, np.take_along_axis(rx, oy[:, :k], 1))
     np.testing.assert_array_equal(rr, np.take_along_axis(ry, ox[:, :k], 1))

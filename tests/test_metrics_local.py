@@ -11,34 +11,17 @@ from harness.errors import InputError
 from harness.metrics import coranking_curve, evaluate, score
 from harness.metrics._distances import DistanceRows
 from harness.metrics._ranks import rank_blocks
+from naive_ranks import full_sort_ranks, squared_distances
 
 
 # ---------------------------------------------------------------- reference
-def _rank_matrix(dist: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Full sort of every row by (distance, index), the query point left out.
-
-    Returns rank[i, j] (1-based, 0 on the diagonal) and the neighbour order.
-    """
-    n = len(dist)
-    rank = np.zeros((n, n), dtype=int)
-    order = np.empty((n, n - 1), dtype=int)
-    for i in range(n):
-        o = np.lexsort((np.arange(n), dist[i]))
-        o = o[o != i]
-        order[i] = o
-        rank[i, o] = np.arange(1, n)
-    return rank, order
-
-
-def _sq(z: np.ndarray) -> np.ndarray:
-    return ((z[:, None, :] - z[None, :, :]) ** 2).sum(-1)
 
 
 def reference(x: np.ndarray, y: np.ndarray, k: int, dist_x: np.ndarray | None = None) -> dict:
     """Every local measure written straight from its formula, O(n^2 log n)."""
     n = len(y)
-    rx, ox = _rank_matrix(_sq(x) if dist_x is None else dist_x)
-    ry, oy = _rank_matrix(_sq(y))
+    rx, ox = full_sort_ranks(squared_distances(x) if dist_x is None else dist_x)
+    ry, oy = full_sort_ranks(squared_distances(y))
     out = {}
     # Venna & Kaski 2001, normalisation as in scikit-learn's trustworthiness.
     norm = 2.0 / (n * k * (2 * n - 3 * k - 1))
@@ -136,8 +119,8 @@ def test_rank_tables_independent_of_block_size(block_rows, integer):
         x, y = r.integers(0, 3, (n, 4)).astype(float), r.integers(0, 3, (n, 2)).astype(float)
     else:
         x, y = r.standard_normal((n, 4)), r.standard_normal((n, 2))
-    rx, ox = _rank_matrix(_sq(x))
-    ry, oy = _rank_matrix(_sq(y))
+    rx, ox = full_sort_ranks(squared_distances(x))
+    ry, oy = full_sort_ranks(squared_distances(y))
     blocks = list(rank_blocks(DistanceRows(points=x), DistanceRows(points=y), np.arange(n), k, block_rows))
     rho = np.vstack([b.data_rank_of_embedding_nn for b in blocks])
     rr = np.vstack([b.embedding_rank_of_data_nn for b in blocks])
@@ -167,8 +150,8 @@ def test_q_nx_is_mean_overlap_over_k(rng):
     # R_NX(K) = ((n-1) Q_NX(K) - K) / (n-1-K).
     n = 80
     x, y = rng.standard_normal((n, 5)), rng.standard_normal((n, 2))
-    _, ox = _rank_matrix(_sq(x))
-    _, oy = _rank_matrix(_sq(y))
+    _, ox = full_sort_ranks(squared_distances(x))
+    _, oy = full_sort_ranks(squared_distances(y))
     res = score(x, y, ks=[5], curve_k_max=30, pair_sample_above=0, n_pairs=100)
     for kk in (1, 5, 12, 30):
         mean_overlap = np.mean([len(set(ox[i, :kk]) & set(oy[i, :kk])) for i in range(n)])

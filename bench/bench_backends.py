@@ -21,6 +21,7 @@ Usage::
     python bench/bench_backends.py            # quickstart suite (several minutes on 2 cores)
     python bench/bench_backends.py --quick    # smaller variant (about a minute)
 """
+
 from __future__ import annotations
 
 import argparse
@@ -36,6 +37,7 @@ sys.path.insert(0, str(ROOT))
 from harness.cells import plan  # noqa: E402
 from harness.distributed import execute_on_dask  # noqa: E402
 from harness.runner import Execution, execute  # noqa: E402
+
 from harness.suite import load_datasets, load_suite, parse_suite  # noqa: E402
 
 QUICK = """\
@@ -77,11 +79,20 @@ def _measure(label: str, run, cells, datasets, scoring, jobs: int) -> dict:
     t0 = time.perf_counter()
     results = list(run(cells, datasets, scoring))
     wall = time.perf_counter() - t0
-    compute = sum(r.fit_seconds + r.score_seconds for r in results
-                  if not (math.isnan(r.fit_seconds) or math.isnan(r.score_seconds)))
+    compute = sum(
+        r.fit_seconds + r.score_seconds
+        for r in results
+        if not (math.isnan(r.fit_seconds) or math.isnan(r.score_seconds))
+    )
     ok = sum(r.status == "ok" for r in results)
-    return {"setup": label, "wall": wall, "cells": len(results), "ok": ok, "compute": compute,
-            "overhead": (jobs * wall - compute) / len(results)}
+    return {
+        "setup": label,
+        "wall": wall,
+        "cells": len(results),
+        "ok": ok,
+        "compute": compute,
+        "overhead": (jobs * wall - compute) / len(results),
+    }
 
 
 def _suite_rows(name: str, suite, jobs: int, address: str) -> list[dict]:
@@ -111,21 +122,26 @@ def main() -> None:
     from distributed import LocalCluster
 
     big = parse_suite(QUICK) if args.quick else load_suite(ROOT / "suites" / "quickstart.yaml")
-    with LocalCluster(n_workers=args.jobs, threads_per_worker=1, processes=True,
-                      dashboard_address=":0", silence_logs=40) as cluster:
+    with LocalCluster(
+        n_workers=args.jobs, threads_per_worker=1, processes=True, dashboard_address=":0", silence_logs=40
+    ) as cluster:
         # tiny first: it also warms up imports and the fork server before the timed big suite
         rows = _suite_rows("tiny", parse_suite(TINY), args.jobs, cluster.scheduler_address)
         rows += _suite_rows(big.name, big, args.jobs, cluster.scheduler_address)
 
     load = os.getloadavg()
-    print(f"machine: {os.cpu_count()} cores, jobs = workers = {args.jobs}, "
-          f"load average at the end {load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} (1 / 5 / 15 min)")
+    print(
+        f"machine: {os.cpu_count()} cores, jobs = workers = {args.jobs}, "
+        f"load average at the end {load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} (1 / 5 / 15 min)"
+    )
     print()
     print("| suite | backend | wall s | cells (ok) | fit+score s | overhead s/cell |")
     print("|---|---|---:|---:|---:|---:|")
     for r in rows:
-        print(f"| {r['suite']} | {r['setup']} | {r['wall']:.1f} | {r['cells']} ({r['ok']}) | "
-              f"{r['compute']:.1f} | {r['overhead']:.3f} |")
+        print(
+            f"| {r['suite']} | {r['setup']} | {r['wall']:.1f} | {r['cells']} ({r['ok']}) | "
+            f"{r['compute']:.1f} | {r['overhead']:.3f} |"
+        )
 
 
 if __name__ == "__main__":

@@ -24,6 +24,7 @@ Usage::
     python bench/bench_measures.py            # full table (long: tens of minutes)
     python bench/bench_measures.py --quick    # n = 2k, 5k, 10k only, no 1M estimate
 """
+
 from __future__ import annotations
 
 import argparse
@@ -58,6 +59,7 @@ def _peak_rss_mib() -> float:
             if line.startswith("VmHWM:"):
                 return int(line.split()[1]) / 1024.0
     import resource
+
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
@@ -71,10 +73,12 @@ def _child(kind: str, n: int, d: int, m: int) -> dict:
     start = time.perf_counter()
     if kind == "sklearn":
         from sklearn.manifold import trustworthiness
+
         value = trustworthiness(x, y, n_neighbors=K)
     elif kind in ("local", "sampled"):
-        queries = np.arange(n) if kind == "local" else np.sort(
-            np.random.default_rng(0).choice(n, m, replace=False))
+        queries = (
+            np.arange(n) if kind == "local" else np.sort(np.random.default_rng(0).choice(n, m, replace=False))
+        )
         terms = metrics._local(x, None, y, [K], K_CURVE, queries, default_memory_bytes())
         value = float(terms.terms[f"trustworthiness@{K}"].mean())
     elif kind == "floor":
@@ -83,8 +87,8 @@ def _child(kind: str, n: int, d: int, m: int) -> dict:
         buf = np.empty((rows, n))
         for s in range(0, n, rows):
             idx = np.arange(s, min(n, s + rows))
-            data.block(idx, out=buf[:len(idx)])
-            emb.block(idx, out=buf[:len(idx)])
+            data.block(idx, out=buf[: len(idx)])
+            emb.block(idx, out=buf[: len(idx)])
         value = float("nan")
     else:
         raise SystemExit(f"unknown kind {kind}")
@@ -115,8 +119,12 @@ def _cell(r: dict | None) -> str:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes only, no 1M estimate")
-    parser.add_argument("--repeat", type=int, default=2,
-                        help=f"interleaved repetitions of rows up to {REPEAT_MAX_N} points (fastest kept)")
+    parser.add_argument(
+        "--repeat",
+        type=int,
+        default=2,
+        help=f"interleaved repetitions of rows up to {REPEAT_MAX_N} points (fastest kept)",
+    )
     parser.add_argument("--child", nargs=4, metavar=("KIND", "N", "D", "M"), help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
@@ -125,24 +133,35 @@ def main() -> None:
         return
 
     print(f"cpus={os.cpu_count()}  numpy={np.__version__}  k={K}  curve to K={K_CURVE}")
-    header = f"{'n':>9} {'D':>4} | {'scikit-learn trustworthiness':>28} | {'foldbench local set':>22} | " \
-             f"{'distance floor':>22} | {'local/floor':>11} | {'sklearn/local':>13} | load"
+    header = (
+        f"{'n':>9} {'D':>4} | {'scikit-learn trustworthiness':>28} | {'foldbench local set':>22} | "
+        f"{'distance floor':>22} | {'local/floor':>11} | {'sklearn/local':>13} | load"
+    )
     print(header)
     print("-" * len(header))
-    for n, d in (QUICK if args.quick else FULL):
+    for n, d in QUICK if args.quick else FULL:
         repeat = max(1, args.repeat) if n <= REPEAT_MAX_N else 1
         runs: dict[str, list[dict | None]] = {"sklearn": [], "local": [], "floor": []}
         for _ in range(repeat):
-            for kind in runs:
+            for kind, done in runs.items():
                 if kind != "sklearn" or n <= SKLEARN_MAX_N:
-                    runs[kind].append(_run(kind, n, d))
+                    done.append(_run(kind, n, d))
         sk, loc, flo = (_fastest(runs[kind]) for kind in ("sklearn", "local", "floor"))
-        ratio = (f"{loc['seconds'] / flo['seconds']:11.2f}" if loc and flo and "error" not in loc
-                 and "error" not in flo else f"{'-':>11}")
-        speed = (f"{sk['seconds'] / loc['seconds']:13.1f}" if sk and "error" not in sk and "error" not in loc
-                 else f"{'-':>13}")
-        print(f"{n:>9} {d:>4} | {_cell(sk):>28} | {_cell(loc):>22} | {_cell(flo):>22} | {ratio} | {speed} | "
-              f"{os.getloadavg()[0]:.1f}", flush=True)
+        ratio = (
+            f"{loc['seconds'] / flo['seconds']:11.2f}"
+            if loc and flo and "error" not in loc and "error" not in flo
+            else f"{'-':>11}"
+        )
+        speed = (
+            f"{sk['seconds'] / loc['seconds']:13.1f}"
+            if sk and "error" not in sk and "error" not in loc
+            else f"{'-':>13}"
+        )
+        print(
+            f"{n:>9} {d:>4} | {_cell(sk):>28} | {_cell(loc):>22} | {_cell(flo):>22} | {ratio} | {speed} | "
+            f"{os.getloadavg()[0]:.1f}",
+            flush=True,
+        )
     if not args.quick:
         n, d, m = SAMPLED
         est = _run("sampled", n, d, m)

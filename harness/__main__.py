@@ -1,4 +1,5 @@
 """``python -m harness`` is the ``foldbench`` command."""
+
 import sys
 
 from .cli import main

@@ -4,6 +4,7 @@ Every mistake in the user's input (a suite, a table, a flag) is raised as
 :class:`InputError`.  The command line prints ``str(error)`` on one line and
 exits with code 2; nothing else in the package prints.
 """
+
 from __future__ import annotations
 
 import difflib
@@ -40,9 +41,3 @@ def suggest(name: str, choices: Iterable[str]) -> str:
     """Return ``" (did you mean 'x'?)"`` for the closest choice, or ``""``."""
     close = difflib.get_close_matches(str(name), sorted(map(str, choices)), n=1, cutoff=0.6)
     return f" (did you mean '{close[0]}'?)" if close else ""
-
-
-def one_of(choices: Iterable[str]) -> str:
-    """Format a short list of allowed names for a message."""
-    names = sorted(map(str, choices))
-    return ", ".join(names)

@@ -1,4 +1,5 @@
 """Naive O(n^2 log n) references for the neighbourhood engine's tests (written plainly on purpose)."""
+
 from __future__ import annotations
 
 import numpy as np

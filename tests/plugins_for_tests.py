@@ -2,6 +2,7 @@
 
 Plain module of tiny classes; add more as tests need them.
 """
+
 from __future__ import annotations
 
 import warnings
@@ -80,7 +81,7 @@ class WarnsWhileFitting:
         self.n_components = n_components
 
     def fit_transform(self, X, y=None):
-        warnings.warn("did not converge", RuntimeWarning)
+        warnings.warn("did not converge", RuntimeWarning, stacklevel=2)
         return X[:, : self.n_components]
 
 

@@ -1,4 +1,5 @@
 """Plug-in methods that misbehave on purpose, for runner tests (plumbing only)."""
+
 from __future__ import annotations
 
 import os

@@ -3,6 +3,7 @@
 Statistics are checked against SciPy; the rest are plumbing tests on invented
 score tables and on tiny real runs (150-point rolled and S-shaped sheets).
 """
+
 from __future__ import annotations
 
 import json
@@ -13,15 +14,16 @@ from xml.etree import ElementTree as ET
 import numpy as np
 import pandas as pd
 import pytest
+from runner_plugins import Noisy
 from scipy import stats
 
-from harness.check import check_markdown, check_runs, check_text, environment_changes, junit_xml, welch_test
+from harness.api import run_suite
+from harness.compare.check import check_markdown, check_runs, check_text, junit_xml, welch_test
+from harness.compare.environment import environment_changes
+from harness.compare.expectations import evaluate_expectations
 from harness.errors import InputError
-from harness.expect import (Tolerance, evaluate_expectations, parse_tolerance_flags, parse_tolerances,
-                            resolve_tolerance)
-from harness.pipeline import run_suite
 from harness.suite import parse_suite
-from runner_plugins import Noisy
+from harness.suite.tolerances import Tolerance, parse_tolerance_flags, parse_tolerances, resolve_tolerance
 
 
 def blurred(n_components: int = 2, random_state: int | None = None) -> Noisy:
@@ -51,12 +53,15 @@ def _run(root: Path, seeds: list[int], proj: str = "runner_plugins:FirstColumns"
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory):
     root = tmp_path_factory.mktemp("runs")
-    return {"baseline": _run(root, [0, 1, 2]),
-            "reseeded": _run(root, [3, 4, 5]),
-            "worse": _run(root, [3, 4, 5], proj="test_check:blurred")}
+    return {
+        "baseline": _run(root, [0, 1, 2]),
+        "reseeded": _run(root, [3, 4, 5]),
+        "worse": _run(root, [3, 4, 5], proj="test_check:blurred"),
+    }
 
 
 # ---------------------------------------------------------------- Welch's test
+
 
 @pytest.mark.parametrize("higher", [True, False])
 @pytest.mark.parametrize("shift", [-0.3, 0.0, 0.4])
@@ -81,24 +86,29 @@ def test_welch_zero_spread_is_exact():
 
 # ---------------------------------------------------------------- tolerances
 
+
 def test_tolerance_defaults_and_overrides():
-    entries = parse_tolerances({"default": 0.02, "stress": "25%", "fit_seconds": "0.1 + 50%",
-                                "silhouette": False})
+    entries = parse_tolerances(
+        {"default": 0.02, "stress": "25%", "fit_seconds": "0.1 + 50%", "silhouette": False}
+    )
     assert resolve_tolerance("trustworthiness@10", {}) == Tolerance(0.01, 0.0, True)
     assert resolve_tolerance("trustworthiness@10", entries).abs == 0.02
-    assert resolve_tolerance("stress", entries).allowance(0.4) == pytest.approx(0.1)   # max(0.02, 25% of 0.4)
-    assert resolve_tolerance("fit_seconds", {}).gate is False      # cost: listed, not gated
+    assert resolve_tolerance("stress", entries).allowance(0.4) == pytest.approx(0.1)  # max(0.02, 25% of 0.4)
+    assert resolve_tolerance("fit_seconds", {}).gate is False  # cost: listed, not gated
     assert resolve_tolerance("fit_seconds", entries) == Tolerance(0.1, 0.5, True)
     assert resolve_tolerance("silhouette", entries).gate is False
 
 
-@pytest.mark.parametrize("flag, words", [
-    ("stress", "MEASURE=VALUE"),
-    ("stres=0.1", "did you mean 'stress'"),
-    ("stress=-1", ">= 0"),
-    ("stress=abc", "a percentage like 25%"),
-    ("alpha=1.5", "between 0 and 1"),
-])
+@pytest.mark.parametrize(
+    "flag, words",
+    [
+        ("stress", "MEASURE=VALUE"),
+        ("stres=0.1", "did you mean 'stress'"),
+        ("stress=-1", ">= 0"),
+        ("stress=abc", "a percentage like 25%"),
+        ("alpha=1.5", "between 0 and 1"),
+    ],
+)
 def test_bad_tolerance_flags(flag, words):
     with pytest.raises(InputError) as err:
         parse_tolerance_flags([flag])
@@ -112,6 +122,7 @@ def test_tolerance_flags():
 
 # ---------------------------------------------------------------- verdicts on invented tables
 
+
 def _folder(path: Path, rows: list[dict], manifest: dict | None = None, suite: str = "") -> Path:
     path.mkdir(parents=True)
     (path / "manifest.json").write_text(json.dumps(manifest or {"seeds": sorted({r["seed"] for r in rows})}))
@@ -121,23 +132,42 @@ def _folder(path: Path, rows: list[dict], manifest: dict | None = None, suite: s
     return path
 
 
-def _rows(method: str, values: list[float], measure: str = "trustworthiness@10", params: str = "-",
-          seed0: int = 0) -> list[dict]:
-    return [{"dataset": "d", "method": method, "params": params, "seed": seed0 + i, "status": "ok",
-             measure: v} for i, v in enumerate(values)]
+def _rows(
+    method: str, values: list[float], measure: str = "trustworthiness@10", params: str = "-", seed0: int = 0
+) -> list[dict]:
+    return [
+        {"dataset": "d", "method": method, "params": params, "seed": seed0 + i, "status": "ok", measure: v}
+        for i, v in enumerate(values)
+    ]
 
 
 def test_verdicts_on_invented_tables(tmp_path):
-    base = _folder(tmp_path / "b", _rows("same", [0.90, 0.91, 0.92]) + _rows("drop", [0.90, 0.905, 0.91])
-                   + _rows("noisy", [0.70, 0.95, 0.80]) + _rows("gain", [0.80, 0.81, 0.80])
-                   + _rows("gone", [0.5, 0.5, 0.5]))
-    cur = _folder(tmp_path / "c", _rows("same", [0.905, 0.91, 0.915]) + _rows("drop", [0.85, 0.86, 0.855])
-                  + _rows("noisy", [0.60, 0.90, 0.75]) + _rows("gain", [0.90, 0.91, 0.90])
-                  + _rows("fresh", [0.5, 0.5, 0.5]))
+    base = _folder(
+        tmp_path / "b",
+        _rows("same", [0.90, 0.91, 0.92])
+        + _rows("drop", [0.90, 0.905, 0.91])
+        + _rows("noisy", [0.70, 0.95, 0.80])
+        + _rows("gain", [0.80, 0.81, 0.80])
+        + _rows("gone", [0.5, 0.5, 0.5]),
+    )
+    cur = _folder(
+        tmp_path / "c",
+        _rows("same", [0.905, 0.91, 0.915])
+        + _rows("drop", [0.85, 0.86, 0.855])
+        + _rows("noisy", [0.60, 0.90, 0.75])
+        + _rows("gain", [0.90, 0.91, 0.90])
+        + _rows("fresh", [0.5, 0.5, 0.5]),
+    )
     out = check_runs(cur, base)
     verdict = out.table.set_index("method")["verdict"].to_dict()
-    assert verdict == {"same": "unchanged", "drop": "regression", "noisy": "within noise",
-                       "gain": "improvement", "gone": "missing", "fresh": "new"}
+    assert verdict == {
+        "same": "unchanged",
+        "drop": "regression",
+        "noisy": "within noise",
+        "gain": "improvement",
+        "gone": "missing",
+        "fresh": "new",
+    }
     assert not out.passed
     assert list(out.regressions["method"]) == ["drop"]
 
@@ -158,8 +188,8 @@ def test_lower_is_better_and_suite_tolerances(tmp_path):
     rows = _rows("m", [0.35, 0.36, 0.35], "stress")
     assert not check_runs(_folder(tmp_path / "c", rows), base).passed
     loose = _folder(tmp_path / "c2", rows, suite="tolerances: {stress: 25%}\n")
-    assert check_runs(loose, base).passed            # suite block: 25% of 0.303 covers +0.05
-    assert not check_runs(loose, base, tolerances={"stress": 0.01}).passed   # a flag overrides it
+    assert check_runs(loose, base).passed  # suite block: 25% of 0.303 covers +0.05
+    assert not check_runs(loose, base, tolerances={"stress": 0.01}).passed  # a flag overrides it
 
 
 def test_cost_measures_are_listed_not_gated(tmp_path):
@@ -179,17 +209,36 @@ def test_all_seeds_failing_is_a_regression(tmp_path):
 
 
 def test_environment_changes_name_old_and_new():
-    old = {"environment": {"python": "3.11.4", "packages": {"scikit-learn": "1.8.0", "numpy": "2.1.0"},
-                           "blas": [{"internal_api": "openblas", "version": "0.3.27", "num_threads": 4}]},
-           "suite": {"hash": "aaaa"}, "datasets": {"roll": {"fingerprint": "f1"}}, "seeds": [0, 1, 2]}
-    new = {"environment": {"python": "3.11.4", "packages": {"scikit-learn": "1.9.1", "numpy": "2.1.0"},
-                           "blas": [{"internal_api": "openblas", "version": "0.3.27", "num_threads": 2}]},
-           "suite": {"hash": "aaaa"}, "datasets": {"roll": {"fingerprint": "f2"}}, "seeds": [5, 6, 7]}
-    assert environment_changes(old, new) == ["scikit-learn 1.8.0 → 1.9.1", "openblas threads 4 → 2",
-                                             "seeds 0-2 → 5-7", "dataset roll fingerprint f1 → f2"]
+    old = {
+        "environment": {
+            "python": "3.11.4",
+            "packages": {"scikit-learn": "1.8.0", "numpy": "2.1.0"},
+            "blas": [{"internal_api": "openblas", "version": "0.3.27", "num_threads": 4}],
+        },
+        "suite": {"hash": "aaaa"},
+        "datasets": {"roll": {"fingerprint": "f1"}},
+        "seeds": [0, 1, 2],
+    }
+    new = {
+        "environment": {
+            "python": "3.11.4",
+            "packages": {"scikit-learn": "1.9.1", "numpy": "2.1.0"},
+            "blas": [{"internal_api": "openblas", "version": "0.3.27", "num_threads": 2}],
+        },
+        "suite": {"hash": "aaaa"},
+        "datasets": {"roll": {"fingerprint": "f2"}},
+        "seeds": [5, 6, 7],
+    }
+    assert environment_changes(old, new) == [
+        "scikit-learn 1.8.0 → 1.9.1",
+        "openblas threads 4 → 2",
+        "seeds 0-2 → 5-7",
+        "dataset roll fingerprint f1 → f2",
+    ]
 
 
 # ---------------------------------------------------------------- bad folders
+
 
 def test_missing_baseline_folder(tmp_path):
     current = _folder(tmp_path / "c", _rows("m", [0.9]))
@@ -199,12 +248,15 @@ def test_missing_baseline_folder(tmp_path):
     assert "\n" not in msg and msg.startswith(f"baseline folder {tmp_path / 'nowhere'}")
 
 
-@pytest.mark.parametrize("breakage, words", [
-    ("no manifest", "no manifest.json"),
-    ("bad manifest", "manifest.json: expected readable JSON"),
-    ("no scores", "no finished cells"),
-    ("bad scores", "scores.csv: expected columns"),
-])
+@pytest.mark.parametrize(
+    "breakage, words",
+    [
+        ("no manifest", "no manifest.json"),
+        ("bad manifest", "manifest.json: expected readable JSON"),
+        ("no scores", "no finished cells"),
+        ("bad scores", "scores.csv: expected columns"),
+    ],
+)
 def test_malformed_baseline_folder(tmp_path, breakage, words):
     current = _folder(tmp_path / "c", _rows("m", [0.9]))
     folder = tmp_path / "base"
@@ -220,6 +272,7 @@ def test_malformed_baseline_folder(tmp_path, breakage, words):
 
 
 # ---------------------------------------------------------------- real runs
+
 
 def test_reseeded_run_passes(runs):
     out = check_runs(runs["reseeded"], runs["baseline"])
@@ -240,8 +293,11 @@ def test_worse_method_fails_and_is_named(runs):
     assert {"roll", "s"} == set(bad["dataset"])
     assert "trustworthiness@10" in set(bad["measure"])
     text = check_text(out)
-    line = next(l for l in text.splitlines() if l.startswith("roll") and "trustworthiness@10" in l
-                and "proj" in l)
+    line = next(
+        line
+        for line in text.splitlines()
+        if line.startswith("roll") and "trustworthiness@10" in line and "proj" in line
+    )
     assert line.rstrip().endswith("regression")
     assert text.splitlines()[-1].startswith("FAILED")
     assert "**regression**" in check_markdown(out)
@@ -258,15 +314,19 @@ def test_junit_has_one_case_per_comparison(runs):
 
 
 def test_expectations_on_a_run(runs):
-    from harness.results import load_run
+    from harness.api import load_run
 
     run = load_run(runs["worse"])
-    suite = parse_suite(SUITE.format(seeds=[5], proj="runner_plugins:FirstColumns") + textwrap.dedent("""\
+    suite = parse_suite(
+        SUITE.format(seeds=[5], proj="runner_plugins:FirstColumns")
+        + textwrap.dedent("""\
         expect:
           - {dataset: s, method: pca, measure: trustworthiness, at_least: 0.9}
           - {method: proj, measure: trustworthiness@10, at_least: 0.9}
           - {dataset: roll, method: [pca, jitter], measure: stress, at_most: 5}
-        """), "gate.yaml")
+        """),
+        "gate.yaml",
+    )
     results = evaluate_expectations(suite, run.scores)
     by = {(r.expectation.where, r.dataset): r for r in results}
     assert by[("expect[0]", "s")].seeds == 3
@@ -277,26 +337,32 @@ def test_expectations_on_a_run(runs):
     assert sum(r.expectation.where == "expect[2]" for r in results) == 2
 
 
-@pytest.mark.parametrize("entry, where, words", [
-    ("{measure: stress, at_most: 1, datset: iris}", "expect[0].datset", "did you mean 'dataset'"),
-    ("{measure: stres, at_most: 1}", "expect[0].measure", "did you mean 'stress'"),
-    ("{measure: stress, at_most: high}", "expect[0].at_most", "expected a number"),
-    ("{measure: stress}", "expect[0]", "at_least, at_most or both"),
-    ("{measure: stress, at_most: 1, method: pcaa}", "expect[0].method", "did you mean 'pca'"),
-    ("{measure: trustworthiness@7, at_least: 1}", "expect[0].measure", "measures.k [5, 10]"),
-])
+@pytest.mark.parametrize(
+    "entry, where, words",
+    [
+        ("{measure: stress, at_most: 1, datset: iris}", "expect[0].datset", "did you mean 'dataset'"),
+        ("{measure: stres, at_most: 1}", "expect[0].measure", "did you mean 'stress'"),
+        ("{measure: stress, at_most: high}", "expect[0].at_most", "expected a number"),
+        ("{measure: stress}", "expect[0]", "at_least, at_most or both"),
+        ("{measure: stress, at_most: 1, method: pcaa}", "expect[0].method", "did you mean 'pca'"),
+        ("{measure: trustworthiness@7, at_least: 1}", "expect[0].measure", "measures.k [5, 10]"),
+    ],
+)
 def test_bad_expectations(entry, where, words):
     with pytest.raises(InputError) as err:
-        parse_suite(SUITE.format(seeds=1, proj="runner_plugins:FirstColumns") + f"expect:\n  - {entry}\n",
-                    "gate.yaml")
+        parse_suite(
+            SUITE.format(seeds=1, proj="runner_plugins:FirstColumns") + f"expect:\n  - {entry}\n", "gate.yaml"
+        )
     assert str(err.value).startswith(f"gate.yaml: {where}:") and words in str(err.value)
 
 
 def test_expectation_without_a_match_fails(runs):
-    from harness.results import load_run
+    from harness.api import load_run
 
-    suite = parse_suite(SUITE.format(seeds=1, proj="runner_plugins:FirstColumns")
-                        + "expect:\n  - {method: pca, params: {whiten: true}, measure: stress, at_most: 1}\n",
-                        "gate.yaml")
+    suite = parse_suite(
+        SUITE.format(seeds=1, proj="runner_plugins:FirstColumns")
+        + "expect:\n  - {method: pca, params: {whiten: true}, measure: stress, at_most: 1}\n",
+        "gate.yaml",
+    )
     (result,) = evaluate_expectations(suite, load_run(runs["baseline"]).scores)
     assert not result.passed and "no configuration" in result.message

@@ -1,4 +1,5 @@
 """The command line end to end, in a temporary folder (plumbing; invented suites)."""
+
 from __future__ import annotations
 
 import json
@@ -37,7 +38,9 @@ def finished_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("e2e")
     suite = root / "e2e.yaml"
     suite.write_text(SUITE)
-    code = main(["run", str(suite), "--out", str(root / "out"), "--jobs", "2", "--quiet", "--no-report", "--no-cache"])
+    code = main(
+        ["run", str(suite), "--out", str(root / "out"), "--jobs", "2", "--quiet", "--no-report", "--no-cache"]
+    )
     runs = list((root / "out" / "e2e").iterdir())
     return code, runs
 
@@ -54,8 +57,16 @@ def test_failing_plugin_is_recorded_and_others_finish(finished_run):
     assert broken.error.str.contains("this plug-in always fails").all()
     others = scores[scores.method != "broken"]
     assert set(others.status) == {"ok"}
-    for col in ("trustworthiness@5", "continuity@10", "knn_recall@10", "stress", "sammon_stress",
-                "shepard_spearman", "fit_seconds", "fit_peak_mb"):
+    for col in (
+        "trustworthiness@5",
+        "continuity@10",
+        "knn_recall@10",
+        "stress",
+        "sammon_stress",
+        "shepard_spearman",
+        "fit_seconds",
+        "fit_peak_mb",
+    ):
         assert others[col].notna().all(), col
     iris = others[others.dataset == "iris"]
     assert iris["knn_accuracy@5"].notna().all()
@@ -103,7 +114,20 @@ def test_run_on_a_single_table(tmp_path):
     frame["group"] = np.where(frame["a"] > 0, "up", "down")
     table = tmp_path / "my table.csv"
     frame.to_csv(table, index=False)
-    code = main(["run", "--table", str(table), "--label", "group", "--out", str(tmp_path / "out"), "--quiet", "--no-report", "--no-cache"])
+    code = main(
+        [
+            "run",
+            "--table",
+            str(table),
+            "--label",
+            "group",
+            "--out",
+            str(tmp_path / "out"),
+            "--quiet",
+            "--no-report",
+            "--no-cache",
+        ]
+    )
     assert code == 0
     run = next((tmp_path / "out" / "my_table").iterdir())
     scores = pd.read_csv(run / "scores.csv")
@@ -113,6 +137,10 @@ def test_run_on_a_single_table(tmp_path):
 
 def test_console_script_module_entry(tmp_path):
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).parent))
-    proc = subprocess.run([sys.executable, "-m", "harness", "run", "--jobs", "0", "x.yaml"],
-                          capture_output=True, text=True, env=env)
+    proc = subprocess.run(
+        [sys.executable, "-m", "harness", "run", "--jobs", "0", "x.yaml"],
+        capture_output=True,
+        text=True,
+        env=env,
+    )
     assert proc.returncode == 2 and "--jobs" in proc.stderr and "Traceback" not in proc.stderr

@@ -1,4 +1,5 @@
 """Dataset loaders: shapes of open data, shapes of generated data, user tables and their errors."""
+
 from __future__ import annotations
 
 import inspect
@@ -14,15 +15,15 @@ from sklearn.model_selection import train_test_split
 from sklearn.neighbors import KNeighborsRegressor
 from sklearn.preprocessing import StandardScaler
 
-from harness._params import validate_params
-from harness.datasets import DATASETS, Dataset, load_dataset
-from harness.datasets import synthetic, scenario
+from harness.datasets import DATASETS, Dataset, load_dataset, scenario, synthetic
 from harness.errors import InputError
+from harness.params import validate_params
 
 GENERATED = ["rolled_sheet", "s_sheet", "gaussian_clusters", "machine_fleet"]
 
 
 # ---------------------------------------------------------------- registry
+
 
 @pytest.mark.parametrize("name", sorted(DATASETS))
 def test_declared_params_match_loader_signature(name):
@@ -41,13 +42,16 @@ def test_defaults_load_with_registry_name(name):
     assert ds.X.dtype == np.float64 and np.isfinite(ds.X).all()
 
 
-@pytest.mark.parametrize("name, given, fragment", [
-    ("rolled_sheet", {"n": 3}, "rolled_sheet.n"),
-    ("rolled_sheet", {"noise": -0.1}, ">= 0"),
-    ("gaussian_clusters", {"cluster_std": 0}, "> 0"),
-    ("table", {"path": "x.csv", "duplicates": "remove"}, "keep, drop"),
-    ("iris", {"n": 1}, "iris.n"),
-])
+@pytest.mark.parametrize(
+    "name, given, fragment",
+    [
+        ("rolled_sheet", {"n": 3}, "rolled_sheet.n"),
+        ("rolled_sheet", {"noise": -0.1}, ">= 0"),
+        ("gaussian_clusters", {"cluster_std": 0}, "> 0"),
+        ("table", {"path": "x.csv", "duplicates": "remove"}, "keep, drop"),
+        ("iris", {"n": 1}, "iris.n"),
+    ],
+)
 def test_impossible_params_are_refused_before_loading(name, given, fragment):
     with pytest.raises(InputError, match=fragment.replace(".", r"\.")):
         validate_params(given, DATASETS[name].params, name)
@@ -55,16 +59,20 @@ def test_impossible_params_are_refused_before_loading(name, given, fragment):
 
 # ---------------------------------------------------------------- open data in scikit-learn
 
-@pytest.mark.parametrize("name, shape, class_sizes", [
-    # scikit-learn dataset documentation (Toy datasets): digits 1797 x 64, 10 classes of about 180
-    ("digits", (1797, 64), None),
-    # scikit-learn documentation: iris 150 x 4, 3 classes of 50
-    ("iris", (150, 4), [50, 50, 50]),
-    # scikit-learn documentation: wine 178 x 13, class_0 59, class_1 71, class_2 48
-    ("wine", (178, 13), [59, 71, 48]),
-    # scikit-learn documentation: breast cancer 569 x 30, 357 benign and 212 malignant
-    ("breast_cancer", (569, 30), [357, 212]),
-])
+
+@pytest.mark.parametrize(
+    "name, shape, class_sizes",
+    [
+        # scikit-learn dataset documentation (Toy datasets): digits 1797 x 64, 10 classes of about 180
+        ("digits", (1797, 64), None),
+        # scikit-learn documentation: iris 150 x 4, 3 classes of 50
+        ("iris", (150, 4), [50, 50, 50]),
+        # scikit-learn documentation: wine 178 x 13, class_0 59, class_1 71, class_2 48
+        ("wine", (178, 13), [59, 71, 48]),
+        # scikit-learn documentation: breast cancer 569 x 30, 357 benign and 212 malignant
+        ("breast_cancer", (569, 30), [357, 212]),
+    ],
+)
 def test_open_data_documented_shapes(name, shape, class_sizes):
     ds = load_dataset(name)
     assert ds.X.shape == shape
@@ -127,6 +135,7 @@ def test_subsample_larger_than_data_is_an_input_error():
 
 
 # ---------------------------------------------------------------- generated shapes
+
 
 def test_rolled_sheet_radius_equals_angle_and_latent_is_arc_length():
     ds = load_dataset("rolled_sheet", {"n": 300, "seed": 1})
@@ -196,8 +205,10 @@ def test_same_seed_same_bytes_other_seed_differs(name):
 
 
 def test_gaussian_clusters_centres_are_separation_apart():
-    ds = load_dataset("gaussian_clusters", {"n": 1000, "n_features": 50, "n_clusters": 5,
-                                            "separation": 10.0, "cluster_std": 1.0})
+    ds = load_dataset(
+        "gaussian_clusters",
+        {"n": 1000, "n_features": 50, "n_clusters": 5, "separation": 10.0, "cluster_std": 1.0},
+    )
     _, counts = np.unique(ds.labels, return_counts=True)
     assert list(counts) == [200] * 5
     means = np.array([ds.X[ds.labels == k].mean(axis=0) for k in range(5)])
@@ -218,6 +229,7 @@ def test_gaussian_clusters_too_few_points():
 
 
 # ---------------------------------------------------------------- demo scenario
+
 
 def test_machine_fleet_shape_and_names():
     ds = load_dataset("machine_fleet")
@@ -251,16 +263,28 @@ def test_machine_fleet_regime_rules():
     load = np.array([0.2, 0.5, 0.9, 0.9, 0.5])
     wear = np.array([0.1, 0.1, 0.1, 0.7, 0.6])
     assert list(scenario.operating_regime(load, wear)) == [
-        "light_duty", "production", "peak_load", "service_due", "service_due"]
+        "light_duty",
+        "production",
+        "peak_load",
+        "service_due",
+        "service_due",
+    ]
 
 
 # ---------------------------------------------------------------- user tables
 
+
 @pytest.fixture
 def frame():
     rng = np.random.default_rng(0)
-    return pd.DataFrame({"a": rng.normal(size=20), "b": rng.normal(size=20), "c": rng.normal(size=20),
-                         "kind": ["x", "y"] * 10})
+    return pd.DataFrame(
+        {
+            "a": rng.normal(size=20),
+            "b": rng.normal(size=20),
+            "c": rng.normal(size=20),
+            "kind": ["x", "y"] * 10,
+        }
+    )
 
 
 def _write(df, path):
@@ -330,6 +354,7 @@ def test_duplicates_kept_with_warning_or_dropped(tmp_path, frame, caplog):
 
 # -- every error names the file and, where there is one, the column
 
+
 def _csv(tmp_path, text, name="bad.csv"):
     path = tmp_path / name
     path.write_text(text)
@@ -339,18 +364,30 @@ def _csv(tmp_path, text, name="bad.csv"):
 GOOD_ROWS = "".join(f"{i},{i * i % 7},{i % 3}\n" for i in range(12))
 
 
-@pytest.mark.parametrize("text, params, column, fragment", [
-    ("a,b,kind\n" + GOOD_ROWS, {"features": ["a", "bb"]}, "bb", "did you mean 'b'"),
-    ("a,b,kind\n" + GOOD_ROWS, {"label": "knd"}, "knd", "did you mean 'kind'"),
-    ("a,b,c\n1,2,3\n2,3,4\n3,x,5\n4,5,6\n" + GOOD_ROWS, {}, "b", "'x' in row 3 (line 4)"),
-    ("a,b,c\n1,2,3\n2,3,4\n3,x,5\n" + GOOD_ROWS, {"features": ["a", "b"]}, "b", "'x' in row 3"),
-    ("a,b,c\n1,2,3\n2,,4\n3,4,5\n4,nan,6\n" + GOOD_ROWS, {}, "b", "2 rows hold NaN, inf or an empty cell, "
-                                                              "first at row 2 (line 3)"),
-    ("a,b,c\n1,inf,3\n" + GOOD_ROWS, {}, "b", "first at row 1"),
-    ("a,b,c\n" + "".join(f"{i},7,{i % 3}\n" for i in range(12)), {}, "b", "every row holds 7"),
-    ("a,b,kind\n" + GOOD_ROWS.replace("3,2,0\n", "3,2,\n"), {"label": "kind"}, "kind", "label in every row"),
-    ("a,b,kind\n" + GOOD_ROWS, {"features": ["a", "kind"], "label": "kind"}, "kind", "left out"),
-])
+@pytest.mark.parametrize(
+    "text, params, column, fragment",
+    [
+        ("a,b,kind\n" + GOOD_ROWS, {"features": ["a", "bb"]}, "bb", "did you mean 'b'"),
+        ("a,b,kind\n" + GOOD_ROWS, {"label": "knd"}, "knd", "did you mean 'kind'"),
+        ("a,b,c\n1,2,3\n2,3,4\n3,x,5\n4,5,6\n" + GOOD_ROWS, {}, "b", "'x' in row 3 (line 4)"),
+        ("a,b,c\n1,2,3\n2,3,4\n3,x,5\n" + GOOD_ROWS, {"features": ["a", "b"]}, "b", "'x' in row 3"),
+        (
+            "a,b,c\n1,2,3\n2,,4\n3,4,5\n4,nan,6\n" + GOOD_ROWS,
+            {},
+            "b",
+            "2 rows hold NaN, inf or an empty cell, first at row 2 (line 3)",
+        ),
+        ("a,b,c\n1,inf,3\n" + GOOD_ROWS, {}, "b", "first at row 1"),
+        ("a,b,c\n" + "".join(f"{i},7,{i % 3}\n" for i in range(12)), {}, "b", "every row holds 7"),
+        (
+            "a,b,kind\n" + GOOD_ROWS.replace("3,2,0\n", "3,2,\n"),
+            {"label": "kind"},
+            "kind",
+            "label in every row",
+        ),
+        ("a,b,kind\n" + GOOD_ROWS, {"features": ["a", "kind"], "label": "kind"}, "kind", "left out"),
+    ],
+)
 def test_table_column_errors_name_file_and_column(tmp_path, text, params, column, fragment):
     path = _csv(tmp_path, text)
     with pytest.raises(InputError) as err:
@@ -360,14 +397,17 @@ def test_table_column_errors_name_file_and_column(tmp_path, text, params, column
     assert "\n" not in message
 
 
-@pytest.mark.parametrize("text, params, fragment", [
-    ("a,b\n1,2\n2,3\n", {}, "at least 10 rows (min_rows), found 2"),
-    ("a,b\n1,2\n2,3\n3,1\n", {"min_rows": 3}, None),
-    ("a,b\n", {}, "found 0"),
-    ("name,city\nx,y\nz,w\n", {}, "at least one numeric feature column"),
-    ("a;b\n1;2\n", {}, "separated by ','"),
-    ("a,b,c\n1,2,3\n", {"features": []}, "'features' is empty"),
-])
+@pytest.mark.parametrize(
+    "text, params, fragment",
+    [
+        ("a,b\n1,2\n2,3\n", {}, "at least 10 rows (min_rows), found 2"),
+        ("a,b\n1,2\n2,3\n3,1\n", {"min_rows": 3}, None),
+        ("a,b\n", {}, "found 0"),
+        ("name,city\nx,y\nz,w\n", {}, "at least one numeric feature column"),
+        ("a;b\n1;2\n", {}, "separated by ','"),
+        ("a,b,c\n1,2,3\n", {"features": []}, "'features' is empty"),
+    ],
+)
 def test_table_file_errors_name_the_file(tmp_path, text, params, fragment):
     path = _csv(tmp_path, text)
     if fragment is None:  # the boundary case loads
@@ -422,6 +462,7 @@ def test_labels_file_of_wrong_length(tmp_path):
 
 # ---------------------------------------------------------------- distance matrices
 
+
 @pytest.fixture
 def distances():
     # reference: SciPy pdist + squareform give a valid Euclidean distance matrix
@@ -446,15 +487,18 @@ def test_distance_matrix_round_trip_with_header_and_row_names(tmp_path, distance
 
 def test_distance_matrix_round_trip_tsv_header_only(tmp_path, distances):
     path = tmp_path / "d.tsv"
-    pd.DataFrame(distances, columns=list("abcdefghi")).to_csv(path, sep="\t", index=False, float_format="%.17g")
+    pd.DataFrame(distances, columns=list("abcdefghi")).to_csv(
+        path, sep="\t", index=False, float_format="%.17g"
+    )
     np.testing.assert_array_equal(load_dataset("distance_matrix", {"path": str(path)}).distances, distances)
 
 
 def test_distance_matrix_npy_with_labels(tmp_path, distances):
     np.save(tmp_path / "d.npy", distances)
     (tmp_path / "labels.csv").write_text("".join(f"{i % 3}\n" for i in range(9)))
-    ds = load_dataset("distance_matrix", {"path": str(tmp_path / "d.npy"),
-                                          "labels_path": str(tmp_path / "labels.csv")})
+    ds = load_dataset(
+        "distance_matrix", {"path": str(tmp_path / "d.npy"), "labels_path": str(tmp_path / "labels.csv")}
+    )
     np.testing.assert_array_equal(ds.distances, distances)
     assert ds.labels.dtype == np.int64 and list(ds.labels[:4]) == [0, 1, 2, 0]
 
@@ -482,13 +526,16 @@ def _broken(D, kind):
     return D
 
 
-@pytest.mark.parametrize("kind, fragment, line", [
-    ("asymmetric", "a symmetric matrix; row 3{line}, column 6 holds", 3),
-    ("diagonal", "zeros on the diagonal; row 4{line}, column 4 holds 0.25", 4),
-    ("negative", "non-negative distances; row 2{line}, column 5 holds -1", 2),
-    ("nan", "finite distances; 2 cells hold NaN or inf, first at row 7{line}, column 8", 7),
-    ("not_square", "a square matrix (n rows x n columns), got 9 x 8", None),
-])
+@pytest.mark.parametrize(
+    "kind, fragment, line",
+    [
+        ("asymmetric", "a symmetric matrix; row 3{line}, column 6 holds", 3),
+        ("diagonal", "zeros on the diagonal; row 4{line}, column 4 holds 0.25", 4),
+        ("negative", "non-negative distances; row 2{line}, column 5 holds -1", 2),
+        ("nan", "finite distances; 2 cells hold NaN or inf, first at row 7{line}, column 8", 7),
+        ("not_square", "a square matrix (n rows x n columns), got 9 x 8", None),
+    ],
+)
 def test_distance_matrix_errors_name_file_and_cell(tmp_path, distances, kind, fragment, line):
     broken = _broken(distances, kind)
     np.savetxt(tmp_path / "dist.csv", broken, delimiter=",")
@@ -516,6 +563,9 @@ def test_distance_matrix_numeric_header_gets_a_hint(tmp_path, distances):
 
 def test_distance_matrix_text_cell(tmp_path):
     path = _csv(tmp_path, "0,1,2\n1,0,oops\n2,3,0\n", name="words.csv")
-    with pytest.raises(InputError, match=r"words\.csv: a number in every cell; found 'oops' at row 2 \(line 2\), "
-                                         r"column 3"):
+    with pytest.raises(
+        InputError,
+        match=r"words\.csv: a number in every cell; found 'oops' at row 2 \(line 2\), "
+        r"column 3",
+    ):
         load_dataset("distance_matrix", {"path": path})

@@ -3,6 +3,7 @@
 Property-based testing of our own loader (hypothesis); the invariant is ours: every
 outcome is a validated suite or one line of InputError.
 """
+
 from __future__ import annotations
 
 import yaml
@@ -16,20 +17,56 @@ VALID = {
     "name": "fuzz",
     "seeds": 2,
     "dimensions": 2,
-    "datasets": [{"use": "iris"}, {"use": "rolled_sheet", "name": "roll", "params": {"n": 120, "noise": 0.1}}],
-    "methods": [{"use": "pca"}, {"use": "tsne", "grid": {"perplexity": [5, 10]}},
-                {"use": "isomap", "params": {"n_neighbors": 8}}],
+    "datasets": [
+        {"use": "iris"},
+        {"use": "rolled_sheet", "name": "roll", "params": {"n": 120, "noise": 0.1}},
+    ],
+    "methods": [
+        {"use": "pca"},
+        {"use": "tsne", "grid": {"perplexity": [5, 10]}},
+        {"use": "isomap", "params": {"n_neighbors": 8}},
+    ],
     "measures": {"k": [5, 10], "rank_by": ["trustworthiness", "stress"]},
     "run": {"time_limit": 30},
 }
 
-scalars = st.one_of(st.none(), st.booleans(), st.integers(-10**6, 10**6), st.floats(allow_nan=True),
-                    st.text(max_size=12), st.sampled_from(["iris", "pca", "tsne", "../x", "a:b", "1e9", "-1"]))
-values = st.recursive(scalars, lambda inner: st.one_of(
-    st.lists(inner, max_size=4), st.dictionaries(st.text(max_size=10), inner, max_size=4)), max_leaves=12)
+scalars = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(-(10**6), 10**6),
+    st.floats(allow_nan=True),
+    st.text(max_size=12),
+    st.sampled_from(["iris", "pca", "tsne", "../x", "a:b", "1e9", "-1"]),
+)
+values = st.recursive(
+    scalars,
+    lambda inner: st.one_of(
+        st.lists(inner, max_size=4), st.dictionaries(st.text(max_size=10), inner, max_size=4)
+    ),
+    max_leaves=12,
+)
 
-KEYS = ["name", "seeds", "dimensions", "datasets", "methods", "measures", "run", "use", "params", "grid",
-        "k", "rank_by", "n", "noise", "perplexity", "n_neighbors", "time_limit", "expect", "tolerances"]
+KEYS = [
+    "name",
+    "seeds",
+    "dimensions",
+    "datasets",
+    "methods",
+    "measures",
+    "run",
+    "use",
+    "params",
+    "grid",
+    "k",
+    "rank_by",
+    "n",
+    "noise",
+    "perplexity",
+    "n_neighbors",
+    "time_limit",
+    "expect",
+    "tolerances",
+]
 
 
 def _outcome(text: str) -> None:
@@ -59,10 +96,10 @@ def _paths(node, prefix=()):
     yield prefix
     if isinstance(node, dict):
         for k, v in node.items():
-            yield from _paths(v, prefix + (k,))
+            yield from _paths(v, (*prefix, k))
     elif isinstance(node, list):
         for i, v in enumerate(node):
-            yield from _paths(v, prefix + (i,))
+            yield from _paths(v, (*prefix, i))
 
 
 PATHS = list(_paths(VALID))[1:]
@@ -70,6 +107,7 @@ PATHS = list(_paths(VALID))[1:]
 
 def _set(doc, path, value):
     import copy
+
     doc = copy.deepcopy(doc)
     node = doc
     for step in path[:-1]:
@@ -80,6 +118,7 @@ def _set(doc, path, value):
 
 def _rename(doc, path, new_key):
     import copy
+
     doc = copy.deepcopy(doc)
     node = doc
     for step in path[:-1]:
@@ -90,7 +129,9 @@ def _rename(doc, path, new_key):
 
 
 @settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(st.sampled_from(PATHS), values, st.sampled_from(["replace", "rename", "delete"]), st.sampled_from(KEYS))
+@given(
+    st.sampled_from(PATHS), values, st.sampled_from(["replace", "rename", "delete"]), st.sampled_from(KEYS)
+)
 def test_mutations_of_a_valid_suite(path, value, how, key):
     if how == "replace":
         doc = _set(VALID, path, value)
@@ -98,6 +139,7 @@ def test_mutations_of_a_valid_suite(path, value, how, key):
         doc = _rename(VALID, path, key)
     else:
         import copy
+
         doc = copy.deepcopy(VALID)
         node = doc
         for step in path[:-1]:

@@ -1,4 +1,5 @@
 """Tests of the method registry, the fitting call, plug-ins and our Sammon mapping."""
+
 from __future__ import annotations
 
 import logging
@@ -13,11 +14,11 @@ from sklearn.manifold import trustworthiness
 from sklearn.model_selection import cross_val_score
 from sklearn.neighbors import KNeighborsClassifier
 
-from harness._params import validate_params
 from harness.datasets._types import Dataset
 from harness.errors import InputError
 from harness.methods import METHODS, DegenerateEmbedding, fit_embedding, get_method_spec
 from harness.methods.sammon import SammonMapping
+from harness.params import validate_params
 
 
 def defaults(name: str) -> dict:
@@ -39,7 +40,7 @@ def roll():
     X, t = make_swiss_roll(800, random_state=0)
     # Intrinsic coordinates: arc length of the spiral r = t (closed form of
     # integral sqrt(1 + t^2) dt) and the height, column 1 in scikit-learn's generator.
-    arc = 0.5 * (t * np.sqrt(1 + t ** 2) + np.arcsinh(t))
+    arc = 0.5 * (t * np.sqrt(1 + t**2) + np.arcsinh(t))
     return X, np.column_stack([arc, X[:, 1]])
 
 
@@ -51,6 +52,7 @@ def small():
 
 # ---------------------------------------------------------------- reference results
 
+
 def test_pca_iris_explained_variance():
     # Iris PCA explained-variance ratios 0.9246 and 0.0531 (from memory; widely reproduced,
     # e.g. in scikit-learn's PCA example output).
@@ -61,8 +63,9 @@ def test_pca_iris_explained_variance():
 def test_isomap_recovers_rolled_sheet_better_than_pca(roll):
     # Tenenbaum, de Silva and Langford (2000): Isomap unrolls the swiss roll, PCA cannot.
     X, truth = roll
-    rho = {name: spearmanr(pdist(truth), pdist(build(name).fit_transform(X)))[0]
-           for name in ("pca", "isomap")}
+    rho = {
+        name: spearmanr(pdist(truth), pdist(build(name).fit_transform(X)))[0] for name in ("pca", "isomap")
+    }
     assert rho["isomap"] > 0.95
     assert rho["isomap"] > rho["pca"] + 0.3
 
@@ -189,6 +192,7 @@ def test_tsne_above_three_dimensions_uses_exact_gradient():
 
 # ---------------------------------------------------------------- plug-ins
 
+
 def test_plugin_resolves_and_receives_components_and_seed(small):
     spec = get_method_spec("plugins_for_tests:ScaledProjection", "suite.yaml: methods[2]")
     assert [p.name for p in spec.params] == ["scale"]
@@ -213,14 +217,17 @@ def test_plugin_declaring_distances_gets_precomputed_metric(small):
     np.testing.assert_array_equal(fit_embedding(spec, Dataset("d", distances=D), 2, {}, 0), D[:, :2])
 
 
-@pytest.mark.parametrize("path, expected", [
-    ("no_such_module_anywhere:Thing", "cannot import module 'no_such_module_anywhere'"),
-    ("plugins_for_tests:ScaledProjektion", "did you mean 'ScaledProjection'"),
-    ("plugins_for_tests:NoFitTransform", "has no fit_transform"),
-    ("plugins_for_tests:NOT_AN_ESTIMATOR", "expected an estimator class"),
-    ("plugins_for_tests", "unknown method"),
-    ("plugins for tests:X", "package.module:Name"),
-])
+@pytest.mark.parametrize(
+    "path, expected",
+    [
+        ("no_such_module_anywhere:Thing", "cannot import module 'no_such_module_anywhere'"),
+        ("plugins_for_tests:ScaledProjektion", "did you mean 'ScaledProjection'"),
+        ("plugins_for_tests:NoFitTransform", "has no fit_transform"),
+        ("plugins_for_tests:NOT_AN_ESTIMATOR", "expected an estimator class"),
+        ("plugins_for_tests", "unknown method"),
+        ("plugins for tests:X", "package.module:Name"),
+    ],
+)
 def test_bad_plugin_paths(path, expected):
     with pytest.raises(InputError) as info:
         get_method_spec(path, "suite.yaml: methods[4].use")
@@ -229,11 +236,14 @@ def test_bad_plugin_paths(path, expected):
     assert expected in message and "\n" not in message
 
 
-@pytest.mark.parametrize("name, reason", [
-    ("ReturnsNaN", "NaN or infinite"),
-    ("ReturnsWrongShape", "shape (90, 3), expected (90, 2)"),
-    ("ReturnsOnePoint", "all points coincide"),
-])
+@pytest.mark.parametrize(
+    "name, reason",
+    [
+        ("ReturnsNaN", "NaN or infinite"),
+        ("ReturnsWrongShape", "shape (90, 3), expected (90, 2)"),
+        ("ReturnsOnePoint", "all points coincide"),
+    ],
+)
 def test_degenerate_outputs_are_refused(name, reason, small):
     spec = get_method_spec(f"plugins_for_tests:{name}")
     with pytest.raises(DegenerateEmbedding) as info:

@@ -1,14 +1,14 @@
 """Neighbourhood engine internals against a plain full sort of every distance row."""
+
 from __future__ import annotations
 
 import numpy as np
 import pytest
+from naive_ranks import full_sort_ranks, squared_distances
 
 from harness.metrics import score
 from harness.metrics._distances import DistanceRows
 from harness.metrics._ranks import rank_blocks
-from naive_ranks import full_sort_ranks, squared_distances
-
 
 
 def _tables(x_rows: DistanceRows, y_rows: DistanceRows, n: int, k: int, exact: int | None = None):
@@ -17,9 +17,10 @@ def _tables(x_rows: DistanceRows, y_rows: DistanceRows, n: int, k: int, exact: i
         walk = walk.exact_up_to(exact)
     blocks = list(walk)
     assert np.array_equal(np.concatenate([b.rows for b in blocks]), np.arange(n))
-    return (np.vstack([b.data_rank_of_embedding_nn for b in blocks]),
-            np.vstack([b.embedding_rank_of_data_nn for b in blocks]))
-
+    return (
+        np.vstack([b.data_rank_of_embedding_nn for b in blocks]),
+        np.vstack([b.embedding_rank_of_data_nn for b in blocks]),
+    )
 
 
 @pytest.mark.parametrize("integer", [False, True])
@@ -61,8 +62,9 @@ def test_distances_closer_than_float32_resolution():
     # values, then the index.
     r = np.random.default_rng(7)
     n, k = 150, 20
-    base = np.where(r.random((n, n)) < 0.35, 2.0 + r.integers(0, 5, (n, n)) * 1e-12,
-                    r.uniform(0.5, 3.0, (n, n)))
+    base = np.where(
+        r.random((n, n)) < 0.35, 2.0 + r.integers(0, 5, (n, n)) * 1e-12, r.uniform(0.5, 3.0, (n, n))
+    )
     d = np.triu(base, 1)
     d = d + d.T
     y = r.standard_normal((n, 2))

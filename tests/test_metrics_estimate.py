@@ -1,4 +1,5 @@
 """Neighbourhood measures estimated from sampled query points."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -40,8 +41,9 @@ def test_sampled_intervals_cover_exact_value(data):
     names = ("trustworthiness@10", "continuity@10", "knn_recall@10", "mrre_data@10", "rnx_auc")
     covered = dict.fromkeys(names, 0)
     for seed in range(100):
-        res = score(x, y, ks=[10], seed=seed, pair_sample_above=0, n_pairs=100,
-                    estimate_above=1000, n_queries=500)
+        res = score(
+            x, y, ks=[10], seed=seed, pair_sample_above=0, n_pairs=100, estimate_above=1000, n_queries=500
+        )
         for name in names:
             covered[name] += abs(res.values[name] - exact[name]) <= res.halfwidths[name]
     assert all(c >= 90 for c in covered.values()), dict(covered)

@@ -1,4 +1,5 @@
 """Distance-preservation and label measures, exact and from sampled pairs."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -55,8 +56,8 @@ def test_exact_global_measures_match_formulas_and_scipy():
     d, e = pdist(x), pdist(y)
     s = (d @ e) / (e @ e)
     # Kruskal 1964 with the closed-form scale written out here.
-    assert res.values["stress"] == pytest.approx(np.sqrt(np.sum((d - s * e) ** 2) / np.sum(d ** 2)), rel=1e-12)
-    s2 = e.sum() / np.sum(e ** 2 / d)
+    assert res.values["stress"] == pytest.approx(np.sqrt(np.sum((d - s * e) ** 2) / np.sum(d**2)), rel=1e-12)
+    s2 = e.sum() / np.sum(e**2 / d)
     # Sammon 1969 with the closed-form scale.
     assert res.values["sammon_stress"] == pytest.approx(np.sum((d - s2 * e) ** 2 / d) / d.sum(), rel=1e-12)
     # Spearman correlation of pairwise distances: scipy.stats.spearmanr.
@@ -70,9 +71,9 @@ def test_optimal_scale_is_a_minimum():
     rng = np.random.default_rng(2)
     d, e = rng.uniform(0.5, 2, 200), rng.uniform(0.5, 2, 200)
     s = (d @ e) / (e @ e)
-    s2 = e.sum() / np.sum(e ** 2 / d)
+    s2 = e.sum() / np.sum(e**2 / d)
     for f in (0.99, 1.01):
-        assert stress(d, e) < np.sqrt(np.sum((d - f * s * e) ** 2) / np.sum(d ** 2))
+        assert stress(d, e) < np.sqrt(np.sum((d - f * s * e) ** 2) / np.sum(d**2))
         assert sammon_stress(d, e) < np.sum((d - f * s2 * e) ** 2 / d) / d.sum()
 
 
@@ -105,8 +106,9 @@ def test_sampled_pair_intervals_cover_exact_value():
 
 def test_knn_accuracy_on_separated_blobs():
     # Far-apart blobs: every k-NN vote is right, accuracy 1 (common practice, no source).
-    x, labels = make_blobs(n_samples=150, centers=3, n_features=5, cluster_std=0.3, center_box=(-50, 50),
-                           random_state=0)
+    x, labels = make_blobs(
+        n_samples=150, centers=3, n_features=5, cluster_std=0.3, center_box=(-50, 50), random_state=0
+    )
     res = score(x, x[:, :2], ks=[5], labels=labels)
     assert res.values["knn_accuracy@5"] == pytest.approx(1.0)
 

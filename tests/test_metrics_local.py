@@ -1,8 +1,10 @@
 """Neighbourhood measures against plain full-sort references and scikit-learn."""
+
 from __future__ import annotations
 
 import numpy as np
 import pytest
+from naive_ranks import full_sort_ranks, squared_distances
 from scipy.spatial.distance import cdist
 from sklearn.decomposition import PCA
 from sklearn.manifold import trustworthiness as sk_trustworthiness
@@ -11,8 +13,6 @@ from harness.errors import InputError
 from harness.metrics import coranking_curve, evaluate, score
 from harness.metrics._distances import DistanceRows
 from harness.metrics._ranks import rank_blocks
-from naive_ranks import full_sort_ranks, squared_distances
-
 
 # ---------------------------------------------------------------- reference
 
@@ -33,7 +33,7 @@ def reference(x: np.ndarray, y: np.ndarray, k: int, dist_x: np.ndarray | None = 
 
     out["knn_recall"] = overlap(k) / k
     # Lee & Verleysen 2009: H_K = n * sum_{l=1..K} |n - 2l| / l.
-    h = n * sum(abs(n - 2 * l) / l for l in range(1, k + 1))
+    h = n * sum(abs(n - 2 * ell) / ell for ell in range(1, k + 1))
     out["mrre_data"] = sum(abs(rx[i, j] - ry[i, j]) / rx[i, j] for i in range(n) for j in ox[i, :k]) / h
     out["mrre_embedding"] = sum(abs(rx[i, j] - ry[i, j]) / ry[i, j] for i in range(n) for j in oy[i, :k]) / h
     q = np.array([overlap(kk) / kk for kk in range(1, k + 1)])
@@ -60,14 +60,17 @@ def rng() -> np.random.Generator:
 
 
 # ---------------------------------------------------------------- scikit-learn
-@pytest.mark.parametrize("seed,n,d,k", [(0, 60, 5, 1), (1, 120, 8, 5), (2, 200, 3, 17), (3, 301, 20, 99),
-                                        (4, 90, 2, 44)])
+@pytest.mark.parametrize(
+    "seed,n,d,k", [(0, 60, 5, 1), (1, 120, 8, 5), (2, 200, 3, 17), (3, 301, 20, 99), (4, 90, 2, 44)]
+)
 def test_trustworthiness_matches_scikit_learn(seed, n, d, k):
     # Source: sklearn.manifold.trustworthiness (scikit-learn), random data without ties.
     r = np.random.default_rng(seed)
     x, y = r.standard_normal((n, d)), r.standard_normal((n, 2))
     res = score(x, y, ks=[k], pair_sample_above=0, n_pairs=100)
-    assert res.values[f"trustworthiness@{k}"] == pytest.approx(sk_trustworthiness(x, y, n_neighbors=k), abs=1e-10)
+    assert res.values[f"trustworthiness@{k}"] == pytest.approx(
+        sk_trustworthiness(x, y, n_neighbors=k), abs=1e-10
+    )
     # Continuity is trustworthiness with the spaces swapped (Venna & Kaski 2001).
     assert res.values[f"continuity@{k}"] == pytest.approx(sk_trustworthiness(y, x, n_neighbors=k), abs=1e-10)
 
@@ -203,18 +206,36 @@ def test_evaluate_keys_are_plain(rng):
     x, y = rng.standard_normal((100, 4)), rng.standard_normal((100, 2))
     labels = np.repeat([0, 1], 50)
     out = evaluate(x, y, k=10, labels=labels)
-    assert set(out) == {"trustworthiness", "continuity", "knn_recall", "stress", "sammon_stress",
-                        "shepard_spearman", "mrre_data", "mrre_embedding", "lcmc", "rnx_auc",
-                        "knn_accuracy", "silhouette"}
+    assert set(out) == {
+        "trustworthiness",
+        "continuity",
+        "knn_recall",
+        "stress",
+        "sammon_stress",
+        "shepard_spearman",
+        "mrre_data",
+        "mrre_embedding",
+        "lcmc",
+        "rnx_auc",
+        "knn_accuracy",
+        "silhouette",
+    }
     assert all(type(v) is float for v in out.values())
     assert out["trustworthiness"] == pytest.approx(sk_trustworthiness(x, y, n_neighbors=10), abs=1e-10)
 
 
 # ---------------------------------------------------------------- validation
-@pytest.mark.parametrize("kwargs,where", [
-    ({"ks": [0]}, "ks"), ({"ks": [25]}, "ks"), ({"ks": []}, "ks"), ({"ks": [2.5]}, "ks"),
-    ({"ks": [3], "metric": "cosine"}, "metric"), ({"ks": [3], "curve_k_max": 49}, "curve_k_max"),
-])
+@pytest.mark.parametrize(
+    "kwargs,where",
+    [
+        ({"ks": [0]}, "ks"),
+        ({"ks": [25]}, "ks"),
+        ({"ks": []}, "ks"),
+        ({"ks": [2.5]}, "ks"),
+        ({"ks": [3], "metric": "cosine"}, "metric"),
+        ({"ks": [3], "curve_k_max": 49}, "curve_k_max"),
+    ],
+)
 def test_bad_parameters_raise_input_error(rng, kwargs, where):
     x, y = rng.standard_normal((50, 3)), rng.standard_normal((50, 2))
     with pytest.raises(InputError, match=where):

@@ -1,4 +1,5 @@
 """Seed aggregation and ranks against SciPy / NumPy."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -6,7 +7,8 @@ import pandas as pd
 import pytest
 from scipy.stats import rankdata
 
-from harness.rank import overall_ranking, rank_within_datasets, resolve_rank_by, summarise
+from harness.compare.aggregate import aggregate as summarise
+from harness.compare.rank import rank_run, rank_within_datasets, resolve_rank_by
 
 
 @pytest.fixture
@@ -16,14 +18,24 @@ def scores():
     for ds in ("a", "b"):
         for method in ("m1", "m2", "m3", "m4"):
             for seed in range(4):
-                rows.append({"dataset": ds, "method": method, "params": "-", "seed": seed, "status": "ok",
-                             "trustworthiness@10": rng.uniform(0.7, 1.0), "stress": rng.uniform(0, 1),
-                             "fit_seconds": rng.uniform(0.1, 1)})
+                rows.append(
+                    {
+                        "dataset": ds,
+                        "method": method,
+                        "params": "-",
+                        "seed": seed,
+                        "status": "ok",
+                        "trustworthiness@10": rng.uniform(0.7, 1.0),
+                        "stress": rng.uniform(0, 1),
+                        "fit_seconds": rng.uniform(0.1, 1),
+                    }
+                )
     frame = pd.DataFrame(rows)
     # a tie on trustworthiness for dataset a: m1 and m2 equal in every seed
     tie = (frame.dataset == "a") & (frame.method == "m2")
-    frame.loc[tie, "trustworthiness@10"] = frame.loc[(frame.dataset == "a") & (frame.method == "m1"),
-                                                      "trustworthiness@10"].to_numpy()
+    frame.loc[tie, "trustworthiness@10"] = frame.loc[
+        (frame.dataset == "a") & (frame.method == "m1"), "trustworthiness@10"
+    ].to_numpy()
     return frame
 
 
@@ -58,7 +70,7 @@ def test_weighted_mean_rank_and_overall(scores):
     ranked = rank_within_datasets(summarise(scores), rank_by)
     r = ranked.iloc[0]
     assert r["mean_rank"] == pytest.approx((2 * r["rank_trustworthiness@10"] + r["rank_stress"]) / 3)
-    overall = overall_ranking(ranked)
+    overall = rank_run(scores, rank_by, set()).overall
     m1 = ranked[ranked.method == "m1"]["mean_rank"].mean()
     assert overall.set_index("method").loc["m1", "mean_rank"] == pytest.approx(m1)
     assert list(overall["mean_rank"]) == sorted(overall["mean_rank"])
@@ -74,4 +86,6 @@ def test_failed_seeds_are_counted_not_averaged(scores):
 
 def test_plain_measure_names_use_the_first_k():
     assert resolve_rank_by({"trustworthiness": 1, "stress": 2}, (30, 10)) == {
-        "trustworthiness@30": 1.0, "stress": 2.0}
+        "trustworthiness@30": 1.0,
+        "stress": 2.0,
+    }

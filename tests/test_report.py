@@ -1,4 +1,5 @@
 """The report of a small real run: files, tables, page, figures (plumbing on invented data)."""
+
 from __future__ import annotations
 
 import base64
@@ -13,12 +14,12 @@ import pandas as pd
 import pytest
 from PIL import Image
 
-from harness.pipeline import run_suite
+from harness.api import run_suite
+from harness.compare.stats import critical_difference
 from harness.report import FIGURES, write_report
 from harness.report.analysis import analyse
 from harness.report.tables import best_mask, measure_table, tex_escape
 from harness.report.verdict import verdict
-from harness.stats import critical_difference
 from harness.suite import parse_suite
 
 SUITE = """
@@ -77,11 +78,11 @@ def test_page_is_self_contained(run_dir):
 @pytest.mark.slow
 def test_page_opens_with_the_verdict_and_cautions(run_dir, analysis):
     page = (run_dir / "report.html").read_text(encoding="utf-8")
-    body = page[page.index("<main>"):]
+    body = page[page.index("<main>") :]
     assert body.index("Verdict") < body.index("Across datasets") < body.index("Pictures")
-    assert "carry little meaning" in page           # tsne is a neighbour-family method
-    assert "isomap (tuned)" in page                  # run over a grid
-    assert "percentile-bootstrap" in page            # intervals are said to be estimates
+    assert "carry little meaning" in page  # tsne is a neighbour-family method
+    assert "isomap (tuned)" in page  # run over a grid
+    assert "percentile-bootstrap" in page  # intervals are said to be estimates
 
 
 @pytest.mark.slow
@@ -138,21 +139,41 @@ def test_html_renders_in_headless_chromium(run_dir, tmp_path):
         pytest.skip("chromium is not installed (apt-get install -y chromium)")
     page = (run_dir / "report.html").read_text(encoding="utf-8")
     # A copy with a probe that records, once loaded, how many images decoded.
-    probe = ("<script>window.addEventListener('load',()=>{const i=[...document.images];"
-             "document.body.setAttribute('data-decoded',i.filter(x=>x.complete&&x.naturalWidth>0).length"
-             "+'/'+i.length);});</script></body>")
+    probe = (
+        "<script>window.addEventListener('load',()=>{const i=[...document.images];"
+        "document.body.setAttribute('data-decoded',i.filter(x=>x.complete&&x.naturalWidth>0).length"
+        "+'/'+i.length);});</script></body>"
+    )
     probed = tmp_path / "probe.html"
     probed.write_text(page.replace("</body>", probe), encoding="utf-8")
-    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-             "--disable-component-update", "--disable-sync", "--no-first-run",
-             f"--user-data-dir={tmp_path / 'profile'}", "--virtual-time-budget=15000"]
-    dom = subprocess.run([browser, *flags, "--dump-dom", probed.as_uri()], capture_output=True,
-                         text=True, timeout=120).stdout
+    flags = [
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--no-first-run",
+        f"--user-data-dir={tmp_path / 'profile'}",
+        "--virtual-time-budget=15000",
+    ]
+    dom = subprocess.run(
+        [browser, *flags, "--dump-dom", probed.as_uri()], capture_output=True, text=True, timeout=120
+    ).stdout
     n = len(FIGURES)
     assert f'data-decoded="{n}/{n}"' in dom
     shot = tmp_path / "shot.png"
-    subprocess.run([browser, *flags, f"--screenshot={shot}", "--window-size=1280,1600",
-                    (run_dir / "report.html").as_uri()], capture_output=True, timeout=120)
+    subprocess.run(
+        [
+            browser,
+            *flags,
+            f"--screenshot={shot}",
+            "--window-size=1280,1600",
+            (run_dir / "report.html").as_uri(),
+        ],
+        capture_output=True,
+        timeout=120,
+    )
     pixels = np.asarray(Image.open(shot).convert("L"), dtype=float)
     assert pixels.std() > 10  # not a blank page
 
@@ -165,9 +186,16 @@ def test_best_mask_marks_printed_ties():
 
 
 def test_measure_table_bold_and_escape():
-    frame = pd.DataFrame({"method": ["a_b", "c"], "params": ["-", "-"], "stress": [0.2, 0.1],
-                          "stress_sd": [0.01, 0.02], "trustworthiness@10": [0.9, 0.8],
-                          "trustworthiness@10_sd": [np.nan, 0.1]})
+    frame = pd.DataFrame(
+        {
+            "method": ["a_b", "c"],
+            "params": ["-", "-"],
+            "stress": [0.2, 0.1],
+            "stress_sd": [0.01, 0.02],
+            "trustworthiness@10": [0.9, 0.8],
+            "trustworthiness@10_sd": [np.nan, 0.1],
+        }
+    )
     md = measure_table(frame, ["stress", "trustworthiness@10"], ["method", "params"])
     assert "**0.100 ± 0.020**" in md and "**0.900**" in md
     tex = measure_table(frame, ["stress", "trustworthiness@10"], ["method", "params"], style="latex")

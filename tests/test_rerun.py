@@ -1,4 +1,5 @@
 """Re-running a finished run from its folder (plumbing tests on a tiny suite)."""
+
 from __future__ import annotations
 
 import json
@@ -7,10 +8,10 @@ import shutil
 import numpy as np
 import pytest
 
-from harness import store
+from harness.api import rerun, run_suite
+from harness.compare.rerun import compare_cells, rerun_text
 from harness.errors import InputError
-from harness.pipeline import run_suite
-from harness.rerun import compare_cells, rerun, rerun_text
+from harness.run import RunFolder
 from harness.suite import parse_suite
 
 SUITE = """\
@@ -36,8 +37,8 @@ def original(tmp_path_factory):
 def test_rerun_reproduces_a_small_suite(original, tmp_path):
     out = rerun(original, tmp_path, jobs=2, isolate=False)
     assert out.run_dir.parent.parent == tmp_path and out.run_dir != original
-    assert len(out.table) == 6                      # 3 methods x 2 seeds, matched cell by cell
-    assert sorted(out.table["seed"].unique()) == [0, 2]   # the manifest's seeds were used
+    assert len(out.table) == 6  # 3 methods x 2 seeds, matched cell by cell
+    assert sorted(out.table["seed"].unique()) == [0, 2]  # the manifest's seeds were used
     assert out.table["verdict"].tolist() == ["identical"] * 6, rerun_text(out)
     assert out.reproduced
     assert rerun_text(out).splitlines()[-1] == "REPRODUCED: 6 cells (6 identical)"
@@ -51,12 +52,12 @@ def _copy(original, tmp_path):
 
 def test_a_changed_embedding_is_reported(original, tmp_path):
     copy = _copy(original, tmp_path)
-    key = store.load_scores(copy)["key"].iloc[0]
+    key = RunFolder(copy).scores["key"].iloc[0]
     path = copy / "embeddings" / f"{key}.npy"
     Y = np.load(path)
     Y[3, 1] += 1e-6
     np.save(path, Y)
-    table = compare_cells(original, store.load_scores(original), copy, store.load_scores(copy))
+    table = compare_cells(RunFolder(original), RunFolder(copy))
     row = table[table["verdict"] != "identical"]
     assert len(row) == 1 and row["verdict"].iloc[0] == "different"
     assert row["where"].iloc[0] == "embedding"
@@ -69,7 +70,7 @@ def test_round_off_counts_as_equal_within_tolerance(original, tmp_path):
     doc = json.loads(record.read_text())
     doc["values"]["stress"] += 1e-12
     record.write_text(json.dumps(doc))
-    table = compare_cells(original, store.load_scores(original), copy, store.load_scores(copy))
+    table = compare_cells(RunFolder(original), RunFolder(copy))
     changed = table[table["verdict"] != "identical"]
     assert changed["verdict"].tolist() == ["equal within 1e-9"]
     assert changed["where"].tolist() == ["stress"]

@@ -3,6 +3,7 @@
 Plumbing tests of our own runner with invented suites and misbehaving plug-ins
 (tests/runner_plugins.py).
 """
+
 from __future__ import annotations
 
 import os
@@ -16,11 +17,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from harness.cache import EmbeddingCache
+from harness.api import run_suite
 from harness.cli import main
 from harness.errors import InputError
-from harness.pipeline import run_suite
-from harness.store import new_run_dir
+from harness.run.cache import EmbeddingCache
+from harness.run.folder import RunFolder
 
 TESTS = Path(__file__).parent
 TIMING = ["fit_seconds", "fit_peak_mb", "score_seconds", "from_cache", "error"]
@@ -60,11 +61,14 @@ def test_time_limit_stops_a_cell_and_the_run_goes_on(tmp_path):
     assert set(s[s.method == "pca"].status) == {"ok"}
 
 
-@pytest.mark.parametrize("plugin,status,words", [
-    ("Exits", "crashed", "exited with code 3"),
-    ("RunsOutOfMemory", "failed", "MemoryError"),
-    ("Raises", "failed", "always fails"),
-])
+@pytest.mark.parametrize(
+    "plugin,status,words",
+    [
+        ("Exits", "crashed", "exited with code 3"),
+        ("RunsOutOfMemory", "failed", "MemoryError"),
+        ("Raises", "failed", "always fails"),
+    ],
+)
 def test_a_dying_or_failing_worker_costs_only_its_cell(tmp_path, plugin, status, words):
     suite = suite_file(tmp_path, f"  - use: pca\n  - use: runner_plugins:{plugin}\n    name: bad\n", seeds=1)
     outcome = run_suite(suite, tmp_path / "out", jobs=2)
@@ -76,7 +80,9 @@ def test_a_dying_or_failing_worker_costs_only_its_cell(tmp_path, plugin, status,
 
 
 def test_degenerate_embedding_is_a_failed_cell(tmp_path):
-    suite = suite_file(tmp_path, "  - use: runner_plugins:Noisy\n    name: flat\n    params: {noise: .nan}\n", seeds=1)
+    suite = suite_file(
+        tmp_path, "  - use: runner_plugins:Noisy\n    name: flat\n    params: {noise: .nan}\n", seeds=1
+    )
     outcome = run_suite(suite, tmp_path / "out", jobs=1)
     s = outcome.scores
     assert set(s.status) == {"failed"}
@@ -86,7 +92,8 @@ def test_degenerate_embedding_is_a_failed_cell(tmp_path):
 @pytest.mark.parametrize("bad", ["../up", "a/b", "/abs", ".hidden", "x" * 80, "a\\b", "..", "ok/../../up"])
 def test_suite_name_cannot_escape_the_output_root(tmp_path, bad):
     from harness.suite import parse_suite
-    with pytest.raises(InputError, match="s.yaml: name"):
+
+    with pytest.raises(InputError, match=r"s\.yaml: name"):
         parse_suite(f"name: '{bad}'\ndatasets: [iris]\nmethods: [pca]\n", "s.yaml")
 
 
@@ -94,7 +101,7 @@ def test_suite_name_cannot_escape_the_output_root(tmp_path, bad):
 def test_the_store_refuses_paths_outside_the_root_even_unvalidated(tmp_path, bad):
     root = tmp_path / "root"
     with pytest.raises(InputError):
-        new_run_dir(root, bad)
+        RunFolder.create(root, bad)
     assert sorted(p.name for p in tmp_path.iterdir()) in ([], ["root"])
 
 
@@ -106,10 +113,12 @@ def test_cache_makes_a_second_run_skip_the_fits(tmp_path):
     second = run_suite(suite, tmp_path / "out", jobs=2, cache=cache)
     assert second.scores["from_cache"].all()
     # fits and scores both come from the cache: the stored score times are the first run's
-    np.testing.assert_array_equal(second.scores.sort_values("key")["score_seconds"],
-                                  first.scores.sort_values("key")["score_seconds"])
-    pd.testing.assert_frame_equal(comparable(first.scores.drop(columns="key")),
-                                  comparable(second.scores.drop(columns="key")))
+    np.testing.assert_array_equal(
+        second.scores.sort_values("key")["score_seconds"], first.scores.sort_values("key")["score_seconds"]
+    )
+    pd.testing.assert_frame_equal(
+        comparable(first.scores.drop(columns="key")), comparable(second.scores.drop(columns="key"))
+    )
     assert main(["cache", "info", "--cache", str(tmp_path / "cache")]) == 0
     assert main(["cache", "clear", "--cache", str(tmp_path / "cache")]) == 0
     assert cache.info()["entries"] == 0
@@ -125,15 +134,29 @@ def test_resume_refuses_a_folder_of_another_suite(tmp_path):
 
 @pytest.mark.slow
 def test_sigkill_then_resume_gives_the_uninterrupted_scores(tmp_path):
-    methods = ("  - use: pca\n  - use: isomap\n    params: {n_neighbors: 8}\n"
-               "  - use: runner_plugins:Sleeps\n    name: slow\n    params: {seconds: 0.4}\n")
+    methods = (
+        "  - use: pca\n  - use: isomap\n    params: {n_neighbors: 8}\n"
+        "  - use: runner_plugins:Sleeps\n    name: slow\n    params: {seconds: 0.4}\n"
+    )
     suite = suite_file(tmp_path, methods, seeds=3)
     reference = run_suite(suite, tmp_path / "ref", jobs=1)
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS), os.environ.get("PYTHONPATH", "")]))
-    cmd = [sys.executable, "-m", "harness", "run", str(suite), "--out", str(tmp_path / "out"),
-           "--jobs", "1", "--no-cache", "--quiet"]
-    proc = subprocess.Popen(cmd, env=env, start_new_session=True,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    cmd = [
+        sys.executable,
+        "-m",
+        "harness",
+        "run",
+        str(suite),
+        "--out",
+        str(tmp_path / "out"),
+        "--jobs",
+        "1",
+        "--no-cache",
+        "--quiet",
+    ]
+    proc = subprocess.Popen(
+        cmd, env=env, start_new_session=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+    )
     deadline = time.time() + 60
     run_dir = None
     while time.time() < deadline:
@@ -147,30 +170,48 @@ def test_sigkill_then_resume_gives_the_uninterrupted_scores(tmp_path):
     assert run_dir is not None, "the run never stored 4 cells"
     stored = len(list((run_dir / "cells").glob("*.json")))
     assert 4 <= stored < 18
-    code = subprocess.run(cmd[:-1] + ["--resume", str(run_dir), "--quiet"], env=env,
-                          capture_output=True, text=True)
+    code = subprocess.run(
+        [*cmd[:-1], "--resume", str(run_dir), "--quiet"], env=env, capture_output=True, text=True
+    )
     assert code.returncode == 0, code.stderr
     resumed = pd.read_csv(run_dir / "scores.csv")
     assert len(resumed) == 18
     assert not resumed.duplicated(["dataset", "method", "params", "seed"]).any()
     ref = comparable(pd.read_csv(reference.run_dir / "scores.csv"))
     got = comparable(resumed)
-    pd.testing.assert_frame_equal(ref[got.columns.drop("key")].reset_index(drop=True),
-                                  got.drop(columns="key"), check_dtype=False)
+    pd.testing.assert_frame_equal(
+        ref[got.columns.drop("key")].reset_index(drop=True), got.drop(columns="key"), check_dtype=False
+    )
 
 
 def test_ctrl_c_stops_cleanly_and_says_how_to_resume(tmp_path):
     methods = "  - use: runner_plugins:Sleeps\n    name: slow\n    params: {seconds: 1.0}\n"
     suite = suite_file(tmp_path, methods, seeds=4)
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS), os.environ.get("PYTHONPATH", "")]))
-    proc = subprocess.Popen([sys.executable, "-m", "harness", "run", str(suite), "--out", str(tmp_path / "out"),
-                             "--jobs", "1", "--no-cache", "--quiet"], env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "harness",
+            "run",
+            str(suite),
+            "--out",
+            str(tmp_path / "out"),
+            "--jobs",
+            "1",
+            "--no-cache",
+            "--quiet",
+        ],
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     deadline = time.time() + 60
     while time.time() < deadline and not list((tmp_path / "out").glob("tough/*/cells/*.json")):
         time.sleep(0.05)
     proc.send_signal(signal.SIGINT)
-    out, err = proc.communicate(timeout=60)
+    _out, err = proc.communicate(timeout=60)
     assert proc.returncode == 130, err
     assert "Resume with: foldbench run" in err and "--resume" in err
     assert "Traceback" not in err
@@ -182,16 +223,19 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path):
     # Children must not re-run the caller's script (multiprocessing would re-import it).
     suite = suite_file(tmp_path, "  - use: pca\n", seeds=2)
     script = tmp_path / "unguarded.py"
-    script.write_text(f"from harness import run_suite\nprint('SCRIPT RAN', flush=True)\n"
-                      f"o = run_suite({str(suite)!r}, {str(tmp_path / 'out')!r}, jobs=2)\n"
-                      "print('CELLS', o.counts)\n")
+    script.write_text(
+        f"from harness import run_suite\nprint('SCRIPT RAN', flush=True)\n"
+        f"o = run_suite({str(suite)!r}, {str(tmp_path / 'out')!r}, jobs=2)\n"
+        "print('CELLS', o.counts)\n"
+    )
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS.parent), os.environ.get("PYTHONPATH", "")]))
     proc = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, env=env, timeout=120)
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.count("SCRIPT RAN") == 1
     assert "CELLS {'ok': 4}" in proc.stdout
-    piped = subprocess.run([sys.executable, "-"], input=script.read_text(), capture_output=True, text=True,
-                           env=env, timeout=120)
+    piped = subprocess.run(
+        [sys.executable, "-"], input=script.read_text(), capture_output=True, text=True, env=env, timeout=120
+    )
     assert "CELLS {'ok': 4}" in piped.stdout, piped.stderr[-500:]
 
 

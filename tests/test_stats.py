@@ -1,4 +1,5 @@
 """Seed statistics, rank tests and fronts against SciPy and published values."""
+
 from __future__ import annotations
 
 import math
@@ -9,8 +10,7 @@ import pytest
 from scipy import stats as sps
 from scipy.spatial import procrustes
 
-from harness.errors import InputError
-from harness.stats import (
+from harness.compare.stats import (
     bootstrap_interval,
     critical_difference,
     embedding_stability,
@@ -23,6 +23,7 @@ from harness.stats import (
     rank_blocks,
     seed_statistics,
 )
+from harness.errors import InputError
 
 # Demšar (2006), Table 5a: two-tailed Nemenyi critical values q_0.05 for k = 2..10.
 DEMSAR_Q05 = {2: 1.960, 3: 2.343, 4: 2.569, 5: 2.728, 6: 2.850, 7: 2.949, 8: 3.031, 9: 3.102, 10: 3.164}
@@ -102,8 +103,9 @@ def test_bootstrap_interval_covers_the_true_mean():
     low, high = bootstrap_interval(sample, seed=7)
     assert low < 3.0 < high
     # SciPy's percentile bootstrap of the mean gives the same interval up to resampling noise
-    ref = sps.bootstrap((sample,), np.mean, method="percentile", confidence_level=0.95,
-                        n_resamples=4000, random_state=7).confidence_interval
+    ref = sps.bootstrap(
+        (sample,), np.mean, method="percentile", confidence_level=0.95, n_resamples=4000, random_state=7
+    ).confidence_interval
     assert low == pytest.approx(ref.low, abs=0.05)
     assert high == pytest.approx(ref.high, abs=0.05)
     # normal theory: half-width about 1.96 * sd / sqrt(n)
@@ -116,8 +118,10 @@ def test_bootstrap_interval_needs_two_seeds():
 
 
 def test_seed_statistics_mean_sd_interval():
-    rows = [{"dataset": "a", "method": "m", "params": "-", "seed": s, "status": "ok", "t@10": v}
-            for s, v in enumerate([0.8, 0.9, 0.85])]
+    rows = [
+        {"dataset": "a", "method": "m", "params": "-", "seed": s, "status": "ok", "t@10": v}
+        for s, v in enumerate([0.8, 0.9, 0.85])
+    ]
     rows.append({"dataset": "a", "method": "m", "params": "-", "seed": 3, "status": "failed", "t@10": np.nan})
     rows.append({"dataset": "a", "method": "one", "params": "-", "seed": 0, "status": "ok", "t@10": 0.5})
     out = seed_statistics(pd.DataFrame(rows), ["t@10"]).set_index("method")

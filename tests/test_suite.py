@@ -3,6 +3,7 @@
 These are checks of our own plumbing (invented suites); the expected paths follow
 the suite format documented in the README.
 """
+
 from __future__ import annotations
 
 import subprocess
@@ -53,29 +54,51 @@ BAD = [
     # (replace this, with this, expected location, expected words)
     ("seeds: 2", "seed: 2", "suite.yaml: seed", "did you mean 'seeds'"),
     ("seeds: 2", "seeds: -1", "suite.yaml: seeds", ">= 1"),
-    ("grid: {perplexity: [5, 10]}", "grid: {perplexity: [5, 10, abc]}",
-     "suite.yaml: methods[1].grid.perplexity[2]", "expected a number"),
-    ("grid: {perplexity: [5, 10]}", "grid: {perplexity: [5, 60]}",
-     "suite.yaml: methods[1].grid.perplexity[1]", "perplexity < n/3"),
-    ("grid: {perplexity: [5, 10]}", "grid: {perplexity: []}",
-     "suite.yaml: methods[1].grid.perplexity", "grid is empty"),
-    ("grid: {perplexity: [5, 10]}", "grid: {perplexty: [5]}",
-     "suite.yaml: methods[1].grid.perplexty", "did you mean 'perplexity'"),
+    (
+        "grid: {perplexity: [5, 10]}",
+        "grid: {perplexity: [5, 10, abc]}",
+        "suite.yaml: methods[1].grid.perplexity[2]",
+        "expected a number",
+    ),
+    (
+        "grid: {perplexity: [5, 10]}",
+        "grid: {perplexity: [5, 60]}",
+        "suite.yaml: methods[1].grid.perplexity[1]",
+        "perplexity < n/3",
+    ),
+    (
+        "grid: {perplexity: [5, 10]}",
+        "grid: {perplexity: []}",
+        "suite.yaml: methods[1].grid.perplexity",
+        "grid is empty",
+    ),
+    (
+        "grid: {perplexity: [5, 10]}",
+        "grid: {perplexty: [5]}",
+        "suite.yaml: methods[1].grid.perplexty",
+        "did you mean 'perplexity'",
+    ),
     ("k: [5, 10]", "k: [5, 149]", "suite.yaml: measures.k[1]", "k < n - 1"),
     ("k: [5, 10]", "k: [5, 0]", "suite.yaml: measures.k[1]", ">= 1"),
     ("seeds: 2", "seeds: 2\ndimensions: 5", "suite.yaml: dimensions", "at most 4"),
     ("params: {n: 200}", "params: {n: -5}", "suite.yaml: datasets[1].params.n", "got -5"),
     ("use: iris", "use: irsi", "suite.yaml: datasets[0].use", "did you mean 'iris'"),
     ("use: pca", "use: pcaa", "suite.yaml: methods[0].use", "did you mean 'pca'"),
-    ("k: [5, 10]", "k: [5, 10]\n  rank_by: [trustworthyness]", "suite.yaml: measures.rank_by.trustworthyness",
-     "did you mean 'trustworthiness'"),
+    (
+        "k: [5, 10]",
+        "k: [5, 10]\n  rank_by: [trustworthyness]",
+        "suite.yaml: measures.rank_by.trustworthyness",
+        "did you mean 'trustworthiness'",
+    ),
     ("name: tiny", "name: ../escape", "suite.yaml: name", "no '..'"),
     ("name: tiny", "name: /abs/path", "suite.yaml: name", "expected a name"),
     ("use: pca", "use: no_such_module_xyz:Thing", "suite.yaml: methods[0].use", "no_such_module_xyz"),
 ]
 
 
-@pytest.mark.parametrize("old,new,where,words", BAD, ids=[b[2].split(": ")[-1] + "-" + b[1][:12] for b in BAD])
+@pytest.mark.parametrize(
+    "old,new,where,words", BAD, ids=[b[2].split(": ")[-1] + "-" + b[1][:12] for b in BAD]
+)
 def test_bad_suite_names_place_and_expectation(tmp_path, old, new, words, where):
     assert old in GOOD
     path = write(tmp_path, GOOD.replace(old, new, 1))
@@ -87,12 +110,15 @@ def test_bad_suite_names_place_and_expectation(tmp_path, old, new, words, where)
     assert "\n" not in message
 
 
-@pytest.mark.parametrize("text,words", [
-    ("name: x\ndatasets: [iris\n", "expected valid YAML"),
-    ("- just\n- a list\n", "expected a mapping"),
-    ("name: x\nmethods: [pca]\n", "datasets: missing"),
-    ("", "expected a mapping"),
-])
+@pytest.mark.parametrize(
+    "text,words",
+    [
+        ("name: x\ndatasets: [iris\n", "expected valid YAML"),
+        ("- just\n- a list\n", "expected a mapping"),
+        ("name: x\nmethods: [pca]\n", "datasets: missing"),
+        ("", "expected a mapping"),
+    ],
+)
 def test_malformed_documents(text, words):
     with pytest.raises(InputError) as info:
         parse_suite(text, "broken.yaml")
@@ -112,13 +138,15 @@ def test_validate_command_exit_codes(tmp_path, capsys):
 
 def test_validate_through_the_console_has_no_traceback(tmp_path):
     bad = write(tmp_path, GOOD.replace("use: iris", "use: irsi"))
-    proc = subprocess.run([sys.executable, "-m", "harness", "validate", str(bad)],
-                          capture_output=True, text=True)
+    proc = subprocess.run(
+        [sys.executable, "-m", "harness", "validate", str(bad)], capture_output=True, text=True
+    )
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr
     assert proc.stderr.strip().splitlines() == [
         "foldbench: error: suite.yaml: datasets[0].use: unknown dataset 'irsi' (did you mean 'iris'?); "
-        "see 'foldbench list datasets'"]
+        "see 'foldbench list datasets'"
+    ]
 
 
 def test_missing_suite_file(tmp_path, capsys):
@@ -130,13 +158,16 @@ def test_table_paths_resolve_next_to_the_suite(tmp_path):
     (tmp_path / "data").mkdir()
     rows = "\n".join(f"{i},{i * i % 7},{(3 * i) % 5},{'ab'[i % 2]}" for i in range(30))
     (tmp_path / "data" / "t.csv").write_text("a,b,c,kind\n" + rows + "\n")
-    path = write(tmp_path, """\
+    path = write(
+        tmp_path,
+        """\
         name: tab
         datasets:
           - use: table
             params: {path: data/t.csv, label: kind}
         methods: [pca]
         measures: {k: 5}
-        """)
+        """,
+    )
     data = load_datasets(load_suite(path))
     assert data["table"].n == 30 and data["table"].n_features == 3

@@ -2,9 +2,9 @@
 
 Importing this package registers the built-in loaders.
 """
+
+from . import bundled, scenario, synthetic, tables  # noqa: F401  (registration)
 from ._registry import DATASETS, DatasetSpec, get_dataset_spec, load_dataset, register_dataset
 from ._types import Dataset
-from . import synthetic, scenario, bundled, tables  # noqa: F401  (registration)
 
-__all__ = ["DATASETS", "Dataset", "DatasetSpec", "get_dataset_spec", "load_dataset",
-           "register_dataset"]
+__all__ = ["DATASETS", "Dataset", "DatasetSpec", "get_dataset_spec", "load_dataset", "register_dataset"]

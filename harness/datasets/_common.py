@@ -1,4 +1,5 @@
 """Pieces shared by the dataset loaders: common parameters, subsampling, scaling."""
+
 from __future__ import annotations
 
 from collections.abc import Callable
@@ -6,8 +7,9 @@ from typing import Any
 
 import numpy as np
 
-from .._params import Param, at_least
 from ..errors import InputError
+from ..params import Param, at_least
+from ..text import squeeze
 
 
 def positive(v: Any) -> str | None:
@@ -17,8 +19,7 @@ def positive(v: Any) -> str | None:
 
 def seed_param() -> Param:
     """The ``seed`` parameter every generated or subsampled dataset takes."""
-    return Param("seed", int, 0, "seed of the random generator (same seed, same data)",
-                 check=at_least(0))
+    return Param("seed", int, 0, "seed of the random generator (same seed, same data)", check=at_least(0))
 
 
 def size_param(default: int, minimum: int) -> Param:
@@ -33,8 +34,9 @@ def noise_param(default: float, doc: str) -> Param:
 
 def standardise_param(default: bool) -> Param:
     """The ``standardise`` switch (each column to mean 0, standard deviation 1)."""
-    return Param("standardise", bool, default,
-                 "scale every feature column to mean 0 and standard deviation 1")
+    return Param(
+        "standardise", bool, default, "scale every feature column to mean 0 and standard deviation 1"
+    )
 
 
 def standardise(X: np.ndarray) -> np.ndarray:
@@ -47,8 +49,7 @@ def standardise(X: np.ndarray) -> np.ndarray:
     return (X - X.mean(axis=0)) / np.where(std > 0, std, 1.0)
 
 
-def stratified_rows(labels: np.ndarray | None, n_total: int, n: int, seed: int,
-                    where: str) -> np.ndarray:
+def stratified_rows(labels: np.ndarray | None, n_total: int, n: int, seed: int, where: str) -> np.ndarray:
     """Choose ``n`` of ``n_total`` rows at random, keeping class shares when labelled.
 
     Each class gets ``n`` times its share, rounded down, and the rows left over
@@ -78,20 +79,14 @@ def stratified_rows(labels: np.ndarray | None, n_total: int, n: int, seed: int,
     rng = np.random.default_rng(seed)
     if labels is None:
         return np.sort(rng.choice(n_total, size=n, replace=False))
-    classes, inverse, counts = np.unique(labels, return_inverse=True, return_counts=True)
+    _classes, inverse, counts = np.unique(labels, return_inverse=True, return_counts=True)
     exact = n * counts / n_total
     quota = np.floor(exact).astype(int)
     # stable sort so ties in the remainder go to the earlier class, deterministically
     extra = np.argsort(-(exact - quota), kind="stable")[: n - quota.sum()]
     quota[extra] += 1
-    chosen = [rng.choice(np.flatnonzero(inverse == c), size=q, replace=False)
-              for c, q in enumerate(quota)]
+    chosen = [rng.choice(np.flatnonzero(inverse == c), size=q, replace=False) for c, q in enumerate(quota)]
     return np.sort(np.concatenate(chosen))
-
-
-def one_line(exc: BaseException) -> str:
-    """Squeeze an exception message onto one line for an :class:`InputError`."""
-    return " ".join(str(exc).split()) or type(exc).__name__
 
 
 def checked(fn: Callable[..., Any], where: str, what: str) -> Any:
@@ -101,4 +96,4 @@ def checked(fn: Callable[..., Any], where: str, what: str) -> Any:
     except InputError:
         raise
     except (OSError, ValueError, TypeError, UnicodeDecodeError, ImportError) as exc:
-        raise InputError(where, f"{what} ({one_line(exc)})") from exc
+        raise InputError(where, f"{what} ({squeeze(exc) or type(exc).__name__})") from exc

@@ -1,12 +1,13 @@
 """Registry of dataset loaders, filled by the :func:`register_dataset` decorator."""
+
 from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from .._params import Param
 from ..errors import InputError, suggest
+from ..params import Param
 from ._types import Dataset
 
 
@@ -38,12 +39,15 @@ class DatasetSpec:
 DATASETS: dict[str, DatasetSpec] = {}
 
 
-def register_dataset(name: str, *, params: tuple[Param, ...] = (), description: str,
-                     source: str = "") -> Callable[[Callable[..., Dataset]], Callable[..., Dataset]]:
+def register_dataset(
+    name: str, *, params: tuple[Param, ...] = (), description: str, source: str = ""
+) -> Callable[[Callable[..., Dataset]], Callable[..., Dataset]]:
     """Decorator that adds a loader to :data:`DATASETS`."""
+
     def wrap(fn: Callable[..., Dataset]) -> Callable[..., Dataset]:
         DATASETS[name] = DatasetSpec(name, fn, tuple(params), description, source)
         return fn
+
     return wrap
 
 
@@ -52,8 +56,9 @@ def get_dataset_spec(name: str, where: str = "") -> DatasetSpec:
     try:
         return DATASETS[name]
     except KeyError:
-        raise InputError(where, f"unknown dataset '{name}'{suggest(name, DATASETS)}; "
-                                f"see 'foldbench list datasets'") from None
+        raise InputError(
+            where, f"unknown dataset '{name}'{suggest(name, DATASETS)}; see 'foldbench list datasets'"
+        ) from None
 
 
 def load_dataset(name: str, params: dict[str, Any] | None = None, *, label: str | None = None) -> Dataset:

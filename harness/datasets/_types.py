@@ -1,4 +1,5 @@
 """The plain value every dataset loader returns."""
+
 from __future__ import annotations
 
 import hashlib
@@ -42,7 +43,10 @@ class Dataset:
     @property
     def n(self) -> int:
         """Number of items."""
-        return int((self.X if self.X is not None else self.distances).shape[0])
+        data = self.X if self.X is not None else self.distances
+        if data is None:
+            raise ValueError(f"dataset {self.name!r} holds neither features nor distances")
+        return int(data.shape[0])
 
     @property
     def n_features(self) -> int | None:

@@ -3,6 +3,7 @@
 Nothing here is measured data; the responses are made up to look plausible and
 to give embeddings a known two-dimensional truth to recover.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable
@@ -63,17 +64,22 @@ def operating_regime(load: np.ndarray, wear: np.ndarray) -> np.ndarray:
     With the default draws the shares are about 20, 22, 38 and 19 % for
     service_due, light_duty, production and peak_load.
     """
-    return np.select([wear >= 0.6, load < 0.4, load >= 0.75],
-                     ["service_due", "light_duty", "peak_load"], default="production")
+    return np.select(
+        [wear >= 0.6, load < 0.4, load >= 0.75],
+        ["service_due", "light_duty", "peak_load"],
+        default="production",
+    )
 
 
 @register_dataset(
     "machine_fleet",
-    params=(size_param(600, 10),
-            noise_param(1.0, "multiplier of each sensor's typical noise (0 = noiseless readings)"),
-            seed_param()),
+    params=(
+        size_param(600, 10),
+        noise_param(1.0, "multiplier of each sensor's typical noise (0 = noiseless readings)"),
+        seed_param(),
+    ),
     description="invented demo: 12 sensor channels of machine tools driven by hidden load and wear; "
-                "labels = operating regime",
+    "labels = operating regime",
     source="invented by foldbench (no measured data)",
 )
 def machine_fleet(n: int = 600, noise: float = 1.0, seed: int = 0) -> Dataset:
@@ -120,9 +126,16 @@ def machine_fleet(n: int = 600, noise: float = 1.0, seed: int = 0) -> Dataset:
         scales = np.array([ch.noise_scale for ch in SENSOR_CHANNELS])
         X = X + rng.normal(size=X.shape) * (noise * scales)
     return Dataset(
-        name="machine_fleet", X=X, labels=operating_regime(load, wear),
+        name="machine_fleet",
+        X=X,
+        labels=operating_regime(load, wear),
         latent=np.column_stack([load, wear]),
-        info={"source": "invented", "feature_names": [ch.name for ch in SENSOR_CHANNELS],
-              "latent_names": ["load", "wear"], "label_names": list(REGIMES),
-              "noise": float(noise), "seed": int(seed)},
+        info={
+            "source": "invented",
+            "feature_names": [ch.name for ch in SENSOR_CHANNELS],
+            "latent_names": ["load", "wear"],
+            "label_names": list(REGIMES),
+            "noise": float(noise),
+            "seed": int(seed),
+        },
     )

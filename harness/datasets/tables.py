@@ -8,6 +8,7 @@ not counting a header; for text files the line number is given as well.
 Relative paths are opened as given (relative to the working directory); the
 suite loader resolves them against the suite file before calling.
 """
+
 from __future__ import annotations
 
 import logging
@@ -17,16 +18,23 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .._params import Param, at_least
 from ..errors import InputError, suggest
+from ..params import Param, at_least
+from ..text import is_number_text
 from ._common import checked, standardise, standardise_param
 from ._registry import register_dataset
 from ._types import Dataset
 
 logger = logging.getLogger(__name__)
 
-_EXTENSIONS = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".parquet": "parquet", ".pq": "parquet",
-               ".npy": "npy"}
+_EXTENSIONS = {
+    ".csv": "csv",
+    ".tsv": "tsv",
+    ".tab": "tsv",
+    ".parquet": "parquet",
+    ".pq": "parquet",
+    ".npy": "npy",
+}
 _SEPARATORS = {"csv": ",", "tsv": "\t"}
 _TEXT_FORMATS = ("csv", "tsv")
 # Distances within this fraction of the largest distance count as equal
@@ -35,6 +43,7 @@ DISTANCE_TOLERANCE = 1e-8
 
 
 # ---------------------------------------------------------------- reading files
+
 
 def _existing_file(path: str) -> Path:
     p = Path(path)
@@ -51,8 +60,11 @@ def _file_format(path: str, fmt: str, allowed: tuple[str, ...]) -> str:
         ext = Path(path).suffix.lower()
         fmt = _EXTENSIONS.get(ext, "")
         if fmt not in allowed:
-            raise InputError(path, f"a file ending in {_extension_list(allowed)}, or the 'format' "
-                                   f"parameter set to one of {', '.join(allowed)}; got '{ext or 'no extension'}'")
+            raise InputError(
+                path,
+                f"a file ending in {_extension_list(allowed)}, or the 'format' "
+                f"parameter set to one of {', '.join(allowed)}; got '{ext or 'no extension'}'",
+            )
     elif fmt not in allowed:
         raise InputError(path, f"format one of {', '.join(allowed)}, got '{fmt}'")
     return fmt
@@ -70,7 +82,9 @@ def _row(i: int, fmt: str, header_lines: int = 1) -> str:
 
 
 def _read_npy(path: str) -> np.ndarray:
-    arr = checked(lambda: np.load(path, allow_pickle=False), path, "a NumPy .npy array that loads without pickle")
+    arr = checked(
+        lambda: np.load(path, allow_pickle=False), path, "a NumPy .npy array that loads without pickle"
+    )
     if not isinstance(arr, np.ndarray):
         raise InputError(path, "a single array (.npy), not an archive")
     if not (np.issubdtype(arr.dtype, np.number) or arr.dtype == bool):
@@ -82,8 +96,11 @@ def _read_frame(path: str, fmt: str) -> pd.DataFrame:
     if fmt == "parquet":
         df = checked(lambda: pd.read_parquet(path), path, "a readable Parquet file")
     else:
-        df = checked(lambda: pd.read_csv(path, sep=_SEPARATORS[fmt]), path,
-                     f"a readable {fmt.upper()} file with a header row")
+        df = checked(
+            lambda: pd.read_csv(path, sep=_SEPARATORS[fmt]),
+            path,
+            f"a readable {fmt.upper()} file with a header row",
+        )
     df.columns = [str(c) for c in df.columns]
     return df
 
@@ -107,8 +124,11 @@ def read_labels(labels_path: str, n: int) -> np.ndarray:
         Integer labels when every label is a whole number, text otherwise.
     """
     _existing_file(labels_path)
-    fmt = _file_format(labels_path, "auto", ("csv", "tsv", "npy")) \
-        if Path(labels_path).suffix.lower() in _EXTENSIONS else "csv"
+    fmt = (
+        _file_format(labels_path, "auto", ("csv", "tsv", "npy"))
+        if Path(labels_path).suffix.lower() in _EXTENSIONS
+        else "csv"
+    )
     if fmt == "npy":
         arr = _read_npy(labels_path)
         if arr.ndim == 2 and arr.shape[1] == 1:
@@ -116,8 +136,11 @@ def read_labels(labels_path: str, n: int) -> np.ndarray:
         if arr.ndim != 1 or arr.shape[0] != n:
             raise InputError(labels_path, f"a 1-D array of {n} labels (one per item), got shape {arr.shape}")
         return arr
-    df = checked(lambda: pd.read_csv(labels_path, sep=_SEPARATORS[fmt], header=None, dtype=str,
-                                     keep_default_na=False), labels_path, "a readable one-column label file")
+    df = checked(
+        lambda: pd.read_csv(labels_path, sep=_SEPARATORS[fmt], header=None, dtype=str, keep_default_na=False),
+        labels_path,
+        "a readable one-column label file",
+    )
     if df.shape[1] != 1:
         raise InputError(labels_path, f"one column of labels, found {df.shape[1]} columns")
     values = [v.strip() for v in df.iloc[:, 0].tolist()]
@@ -128,8 +151,9 @@ def read_labels(labels_path: str, n: int) -> np.ndarray:
         raise InputError(labels_path, f"{n} labels (one per item), found {len(values)} lines")
     empty = [i for i, v in enumerate(values) if v == ""]
     if empty:
-        raise InputError(labels_path, f"a label on every line; {len(empty)} empty, "
-                                      f"first at {_row(empty[0], fmt, header)}")
+        raise InputError(
+            labels_path, f"a label on every line; {len(empty)} empty, first at {_row(empty[0], fmt, header)}"
+        )
     try:
         return np.array([int(v) for v in values], dtype=np.int64)
     except ValueError:
@@ -137,6 +161,7 @@ def read_labels(labels_path: str, n: int) -> np.ndarray:
 
 
 # ---------------------------------------------------------------- checking columns
+
 
 def _column_where(path: str, column: Any) -> str:
     return f"{path}, column '{column}'" if isinstance(column, str) else f"{path}, column {column}"
@@ -163,19 +188,23 @@ def _check_feature_values(X: np.ndarray, names: list[Any], path: str, fmt: str, 
     finite = np.isfinite(X)
     for j in np.flatnonzero(~finite.all(axis=0)):
         rows = np.flatnonzero(~finite[:, j])
-        raise InputError(_column_where(path, names[j]),
-                         f"finite numbers; {rows.size} row{'s' * (rows.size != 1)} hold NaN, inf or "
-                         f"an empty cell, first at {_row(int(rows[0]), fmt)}")
+        raise InputError(
+            _column_where(path, names[j]),
+            f"finite numbers; {rows.size} row{'s' * (rows.size != 1)} hold NaN, inf or "
+            f"an empty cell, first at {_row(int(rows[0]), fmt)}",
+        )
     constant = np.flatnonzero(np.ptp(X, axis=0) == 0) if X.shape[0] else np.array([], dtype=int)
     if constant.size:
-        j = int(constant[0])
-        raise InputError(_column_where(path, names[j]),
-                         f"a column whose values vary; every row holds {X[0, j]:g} (zero variance), "
-                         f"so {remedy}")
+        col = int(constant[0])
+        raise InputError(
+            _column_where(path, names[col]),
+            f"a column whose values vary; every row holds {X[0, col]:g} (zero variance), so {remedy}",
+        )
 
 
-def _pick_columns(df: pd.DataFrame, features: list[Any] | None, label: str | None,
-                  path: str, fmt: str) -> tuple[list[str], list[str]]:
+def _pick_columns(
+    df: pd.DataFrame, features: list[Any] | None, label: str | None, path: str, fmt: str
+) -> tuple[list[str], list[str]]:
     """Feature columns to use, and text columns left out by default."""
     columns = list(df.columns)
     for name in ([label] if label is not None else []) + list(features or []):
@@ -183,9 +212,10 @@ def _pick_columns(df: pd.DataFrame, features: list[Any] | None, label: str | Non
             raise InputError(f"{path}, column {name!r}", "a column name as text")
         if name not in columns:
             shown = ", ".join(columns[:12]) + (", ..." if len(columns) > 12 else "")
-            raise InputError(_column_where(path, name),
-                             f"a column named in the header; there is none{suggest(name, columns)} "
-                             f"(columns: {shown})")
+            raise InputError(
+                _column_where(path, name),
+                f"a column named in the header; there is none{suggest(name, columns)} (columns: {shown})",
+            )
     if features is not None:
         if label is not None and label in features:
             raise InputError(_column_where(path, label), "the label column to be left out of 'features'")
@@ -208,10 +238,14 @@ def _pick_columns(df: pd.DataFrame, features: list[Any] | None, label: str | Non
             _numeric_column(df, col, path, fmt)
         ignored.append(col)
     if not chosen:
-        hint = (f"; only one column was read, is the file separated by '{_SEPARATORS.get(fmt, '')}'?"
-                if df.shape[1] == 1 and fmt in _TEXT_FORMATS else "")
-        raise InputError(path, f"at least one numeric feature column; found none "
-                               f"(columns: {', '.join(columns)}){hint}")
+        hint = (
+            f"; only one column was read, is the file separated by '{_SEPARATORS.get(fmt, '')}'?"
+            if df.shape[1] == 1 and fmt in _TEXT_FORMATS
+            else ""
+        )
+        raise InputError(
+            path, f"at least one numeric feature column; found none (columns: {', '.join(columns)}){hint}"
+        )
     if ignored:
         logger.info("%s: leaving out text columns %s", path, ", ".join(ignored))
     return chosen, ignored
@@ -221,8 +255,10 @@ def _label_values(df: pd.DataFrame, label: str, path: str, fmt: str) -> np.ndarr
     series = df[label]
     missing = np.flatnonzero(series.isna().to_numpy())
     if missing.size:
-        raise InputError(_column_where(path, label),
-                         f"a label in every row; {missing.size} empty, first at {_row(int(missing[0]), fmt)}")
+        raise InputError(
+            _column_where(path, label),
+            f"a label in every row; {missing.size} empty, first at {_row(int(missing[0]), fmt)}",
+        )
     if pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series):
         return series.to_numpy()
     return np.array([str(v) for v in series.tolist()], dtype=str)
@@ -230,24 +266,44 @@ def _label_values(df: pd.DataFrame, label: str, path: str, fmt: str) -> np.ndarr
 
 # ---------------------------------------------------------------- loaders
 
+
 @register_dataset(
     "table",
-    params=(Param("path", str, None, "the table file (.csv, .tsv, .parquet or .npy); required"),
-            Param("format", str, "auto", "file format; 'auto' goes by the extension",
-                  choices=("auto", "csv", "tsv", "parquet", "npy")),
-            Param("features", list, None, "feature column names (default: every numeric column but the label)"),
-            Param("label", str, None, "column holding class labels (optional)"),
-            Param("labels_path", str, None, "one-column file of labels, one per row (for .npy tables)"),
-            standardise_param(False),
-            Param("duplicates", str, "keep", "rows with identical features: keep (with a warning) or drop",
-                  choices=("keep", "drop")),
-            Param("min_rows", int, 10, "fewest rows accepted", check=at_least(2))),
+    params=(
+        Param("path", str, None, "the table file (.csv, .tsv, .parquet or .npy); required"),
+        Param(
+            "format",
+            str,
+            "auto",
+            "file format; 'auto' goes by the extension",
+            choices=("auto", "csv", "tsv", "parquet", "npy"),
+        ),
+        Param("features", list, None, "feature column names (default: every numeric column but the label)"),
+        Param("label", str, None, "column holding class labels (optional)"),
+        Param("labels_path", str, None, "one-column file of labels, one per row (for .npy tables)"),
+        standardise_param(False),
+        Param(
+            "duplicates",
+            str,
+            "keep",
+            "rows with identical features: keep (with a warning) or drop",
+            choices=("keep", "drop"),
+        ),
+        Param("min_rows", int, 10, "fewest rows accepted", check=at_least(2)),
+    ),
     description="your own feature table: CSV, TSV, Parquet or a 2-D NumPy array",
     source="user file",
 )
-def table(path: str | None = None, format: str = "auto", features: list[str] | None = None,
-          label: str | None = None, labels_path: str | None = None, standardise: bool = False,
-          duplicates: str = "keep", min_rows: int = 10) -> Dataset:
+def table(
+    path: str | None = None,
+    format: str = "auto",
+    features: list[str] | None = None,
+    label: str | None = None,
+    labels_path: str | None = None,
+    standardise: bool = False,
+    duplicates: str = "keep",
+    min_rows: int = 10,
+) -> Dataset:
     """Load a table of numeric features, with optional class labels.
 
     Parameters
@@ -289,33 +345,27 @@ def table(path: str | None = None, format: str = "auto", features: list[str] | N
         raise InputError("table.path", "the path of a table file (required)")
     _existing_file(path)
     fmt = _file_format(path, format, ("csv", "tsv", "parquet", "npy"))
-    ignored: list[str] = []
     if fmt == "npy":
         if features is not None or label is not None:
-            raise InputError(path, "no 'features' or 'label' for a .npy array, which has no column names "
-                                   "(all columns are features; give labels with 'labels_path')")
-        X = _read_npy(path)
-        if X.ndim != 2:
-            raise InputError(path, f"a 2-D array (rows x features), got shape {X.shape}")
-        X = X.astype(np.float64)
-        names: list[Any] = list(range(X.shape[1]))
-        if not names:
-            raise InputError(path, "at least one feature column; the array has 0 columns")
-        labels = None
+            raise InputError(
+                path,
+                "no 'features' or 'label' for a .npy array, which has no column names "
+                "(all columns are features; give labels with 'labels_path')",
+            )
+        X, names = _npy_features(path)
+        labels: np.ndarray | None = None
+        ignored: list[str] = []
     else:
-        df = _read_frame(path, fmt)
-        if df.shape[0] == 0:
-            raise InputError(path, f"at least {min_rows} rows (min_rows), found 0")
-        names, ignored = _pick_columns(df, features, label, path, fmt)
-        if not names:
-            raise InputError(path, "at least one feature column; 'features' is empty")
-        X = np.column_stack([_numeric_column(df, c, path, fmt) for c in names])
-        labels = _label_values(df, label, path, fmt) if label is not None else None
+        X, names, labels, ignored = _frame_features(path, fmt, features, label, min_rows)
     if X.shape[0] == 0:
         raise InputError(path, f"at least {min_rows} rows, found 0")
-    remedy = ("remove that column from the array" if fmt == "npy"
-              else "leave it out of 'features'" if features is not None
-              else "list the other columns in 'features'")
+    remedy = (
+        "remove that column from the array"
+        if fmt == "npy"
+        else "leave it out of 'features'"
+        if features is not None
+        else "list the other columns in 'features'"
+    )
     _check_feature_values(X, names, path, fmt, remedy=remedy)
     if labels_path is not None:
         if labels is not None:
@@ -329,15 +379,50 @@ def table(path: str | None = None, format: str = "auto", features: list[str] | N
     if standardise:
         X = _standardise_checked(X, names, path)
     return Dataset(
-        name="table", X=X, labels=labels,
-        info={"source": str(path), "format": fmt, "feature_names": [str(c) for c in names],
-              "label": label, "ignored_columns": ignored, "duplicate_rows": n_duplicates,
-              "duplicates": duplicates, "standardised": bool(standardise)},
+        name="table",
+        X=X,
+        labels=labels,
+        info={
+            "source": str(path),
+            "format": fmt,
+            "feature_names": [str(c) for c in names],
+            "label": label,
+            "ignored_columns": ignored,
+            "duplicate_rows": n_duplicates,
+            "duplicates": duplicates,
+            "standardised": bool(standardise),
+        },
     )
 
 
-def _handle_duplicates(X: np.ndarray, labels: np.ndarray | None, duplicates: str,
-                       path: str) -> tuple[np.ndarray, np.ndarray | None, int]:
+def _npy_features(path: str) -> tuple[np.ndarray, list[Any]]:
+    """Features of a 2-D ``.npy`` array; its columns are named by number."""
+    X = _read_npy(path)
+    if X.ndim != 2:
+        raise InputError(path, f"a 2-D array (rows x features), got shape {X.shape}")
+    if X.shape[1] == 0:
+        raise InputError(path, "at least one feature column; the array has 0 columns")
+    return X.astype(np.float64), list(range(X.shape[1]))
+
+
+def _frame_features(
+    path: str, fmt: str, features: list[str] | None, label: str | None, min_rows: int
+) -> tuple[np.ndarray, list[Any], np.ndarray | None, list[str]]:
+    """Features, their names, labels and the text columns left out, of a CSV, TSV or Parquet table."""
+    df = _read_frame(path, fmt)
+    if df.shape[0] == 0:
+        raise InputError(path, f"at least {min_rows} rows (min_rows), found 0")
+    names, ignored = _pick_columns(df, features, label, path, fmt)
+    if not names:
+        raise InputError(path, "at least one feature column; 'features' is empty")
+    X = np.column_stack([_numeric_column(df, c, path, fmt) for c in names])
+    labels = _label_values(df, label, path, fmt) if label is not None else None
+    return X, list(names), labels, ignored
+
+
+def _handle_duplicates(
+    X: np.ndarray, labels: np.ndarray | None, duplicates: str, path: str
+) -> tuple[np.ndarray, np.ndarray | None, int]:
     _, first = np.unique(X, axis=0, return_index=True)
     n_dup = X.shape[0] - first.size
     if n_dup == 0:
@@ -347,8 +432,11 @@ def _handle_duplicates(X: np.ndarray, labels: np.ndarray | None, duplicates: str
         logger.info("%s: dropped %d rows that repeat an earlier row's features", path, n_dup)
         return X[keep], None if labels is None else labels[keep], n_dup
     # identical points tie in every neighbour ranking, which bends rank-based measures
-    logger.warning("%s: %d rows repeat an earlier row's features; kept (set duplicates: drop to remove them)",
-                   path, n_dup)
+    logger.warning(
+        "%s: %d rows repeat an earlier row's features; kept (set duplicates: drop to remove them)",
+        path,
+        n_dup,
+    )
     return X, labels, n_dup
 
 
@@ -356,19 +444,14 @@ def _standardise_checked(X: np.ndarray, names: list[Any], path: str) -> np.ndarr
     """Standardise, re-checking constancy (dropping duplicates can leave a column constant)."""
     constant = np.flatnonzero(np.ptp(X, axis=0) == 0)
     if constant.size:
-        raise InputError(_column_where(path, names[int(constant[0])]),
-                         "a column whose values vary after dropping duplicate rows")
+        raise InputError(
+            _column_where(path, names[int(constant[0])]),
+            "a column whose values vary after dropping duplicate rows",
+        )
     return standardise(X)
 
 
 # ---------------------------------------------------------------- distance matrices
-
-def _parses(cell: str) -> bool:
-    try:
-        float(cell)
-    except ValueError:
-        return False
-    return True
 
 
 def _read_distance_text(path: str, fmt: str) -> tuple[np.ndarray, int]:
@@ -376,31 +459,42 @@ def _read_distance_text(path: str, fmt: str) -> tuple[np.ndarray, int]:
 
     Returns the matrix and the number of header lines.
     """
-    df = checked(lambda: pd.read_csv(path, sep=_SEPARATORS[fmt], header=None, dtype=str,
-                                     keep_default_na=False), path, f"a readable {fmt.upper()} distance matrix")
+    df = checked(
+        lambda: pd.read_csv(path, sep=_SEPARATORS[fmt], header=None, dtype=str, keep_default_na=False),
+        path,
+        f"a readable {fmt.upper()} distance matrix",
+    )
     cells = df.to_numpy(dtype=object)
     cells = np.vectorize(lambda c: str(c).strip(), otypes=[object])(cells)
     # the first cell may be an empty corner above row names, so it does not decide
-    header = int(cells.shape[0] > 0 and not all(_parses(c) for c in cells[0, 1:]))
+    header = int(cells.shape[0] > 0 and not all(is_number_text(c) for c in cells[0, 1:]))
     cells = cells[header:]
-    row_names = int(cells.shape[1] > 0 and not all(_parses(c) for c in cells[:, 0]))
+    row_names = int(cells.shape[1] > 0 and not all(is_number_text(c) for c in cells[:, 0]))
     cells = cells[:, row_names:]
     D = np.empty(cells.shape, dtype=np.float64)
     for (i, j), c in np.ndenumerate(cells):
         try:
             D[i, j] = float(c)
         except ValueError:
-            raise InputError(path, f"a number in every cell; found {c!r} at {_row(i, fmt, header)}, "
-                                   f"column {j + 1}") from None
+            raise InputError(
+                path, f"a number in every cell; found {c!r} at {_row(i, fmt, header)}, column {j + 1}"
+            ) from None
     return D, header
 
 
 @register_dataset(
     "distance_matrix",
-    params=(Param("path", str, None, "square distance matrix (.csv, .tsv or .npy); required"),
-            Param("format", str, "auto", "file format; 'auto' goes by the extension",
-                  choices=("auto", "csv", "tsv", "npy")),
-            Param("labels_path", str, None, "one-column file of labels, one per item (optional)")),
+    params=(
+        Param("path", str, None, "square distance matrix (.csv, .tsv or .npy); required"),
+        Param(
+            "format",
+            str,
+            "auto",
+            "file format; 'auto' goes by the extension",
+            choices=("auto", "csv", "tsv", "npy"),
+        ),
+        Param("labels_path", str, None, "one-column file of labels, one per item (optional)"),
+    ),
     description="your own precomputed distances between items: a square symmetric matrix",
     source="user file",
 )
@@ -443,8 +537,12 @@ def distance_matrix(path: str | None = None, format: str = "auto", labels_path: 
         D, header = _read_distance_text(path, fmt)
     D = _checked_distances(D, path, fmt, header)
     labels = read_labels(labels_path, D.shape[0]) if labels_path is not None else None
-    return Dataset(name="distance_matrix", distances=D, labels=labels,
-                   info={"source": str(path), "format": fmt, "labels_path": labels_path})
+    return Dataset(
+        name="distance_matrix",
+        distances=D,
+        labels=labels,
+        info={"source": str(path), "format": fmt, "labels_path": labels_path},
+    )
 
 
 def _checked_distances(D: np.ndarray, path: str, fmt: str, header: int) -> np.ndarray:
@@ -453,13 +551,17 @@ def _checked_distances(D: np.ndarray, path: str, fmt: str, header: int) -> np.nd
 
     if D.ndim != 2 or D.shape[0] != D.shape[1]:
         shape = " x ".join(map(str, D.shape))
-        hint = " (a header of numbers is read as data)" if D.ndim == 2 and D.shape[0] == D.shape[1] + 1 else ""
+        hint = (
+            " (a header of numbers is read as data)" if D.ndim == 2 and D.shape[0] == D.shape[1] + 1 else ""
+        )
         raise InputError(path, f"a square matrix (n rows x n columns), got {shape}{hint}")
     if D.shape[0] < 3:
         raise InputError(path, f"distances between at least 3 items, got {D.shape[0]}")
     bad = np.argwhere(~np.isfinite(D))
     if bad.size:
-        raise InputError(path, f"finite distances; {len(bad)} cells hold NaN or inf, first at {cell(*bad[0])}")
+        raise InputError(
+            path, f"finite distances; {len(bad)} cells hold NaN or inf, first at {cell(*bad[0])}"
+        )
     bad = np.argwhere(D < 0)
     if bad.size:
         i, j = bad[0]
@@ -472,8 +574,9 @@ def _checked_distances(D: np.ndarray, path: str, fmt: str, header: int) -> np.nd
     bad = np.argwhere(np.abs(D - D.T) > tol)
     if bad.size:
         i, j = bad[0]
-        raise InputError(path, f"a symmetric matrix; {cell(i, j)} holds {D[i, j]:g} but "
-                               f"{cell(j, i)} holds {D[j, i]:g}")
+        raise InputError(
+            path, f"a symmetric matrix; {cell(i, j)} holds {D[i, j]:g} but {cell(j, i)} holds {D[j, i]:g}"
+        )
     D = (D + D.T) / 2.0
     np.fill_diagonal(D, 0.0)
     n_zero = int((np.count_nonzero(D == 0) - D.shape[0]) // 2)

@@ -2,8 +2,20 @@
 
 Importing this package registers the built-in methods.
 """
-from ._registry import METHODS, MethodSpec, get_method_spec, register_method
-from ._fit import DegenerateEmbedding, fit_embedding
-from . import builtin  # noqa: F401  (registration)
 
-__all__ = ["METHODS", "DegenerateEmbedding", "MethodSpec", "fit_embedding", "get_method_spec", "register_method"]
+from . import builtin  # registers the built-in methods
+from ._fit import DegenerateEmbedding, fit_embedding
+from ._registry import METHODS, MethodSpec, register_method
+from .lookup import get_method_spec
+from .plugins import check_method
+
+__all__ = [
+    "METHODS",
+    "DegenerateEmbedding",
+    "MethodSpec",
+    "builtin",
+    "check_method",
+    "fit_embedding",
+    "get_method_spec",
+    "register_method",
+]

@@ -3,6 +3,7 @@
 Both give the same configuration for Euclidean data, so a method started from
 "PCA" lands on the same start whether it sees coordinates or their distances.
 """
+
 from __future__ import annotations
 
 import numpy as np

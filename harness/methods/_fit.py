@@ -1,4 +1,5 @@
 """Fit one method on one dataset and check that the result is a usable embedding."""
+
 from __future__ import annotations
 
 import logging
@@ -33,8 +34,9 @@ class DegenerateEmbedding(RuntimeError):
         super().__init__(f"{where}{reason}")
 
 
-def fit_embedding(spec: MethodSpec, dataset: Dataset, n_components: int,
-                  params: dict[str, Any], seed: int) -> np.ndarray:
+def fit_embedding(
+    spec: MethodSpec, dataset: Dataset, n_components: int, params: dict[str, Any], seed: int
+) -> np.ndarray:
     """Fit ``spec`` on ``dataset`` and return a checked embedding.
 
     Parameters
@@ -65,9 +67,11 @@ def fit_embedding(spec: MethodSpec, dataset: Dataset, n_components: int,
     precomputed = dataset.is_precomputed
     if precomputed and not spec.accepts_distances:
         takers = ", ".join(sorted(m.name for m in METHODS.values() if m.accepts_distances))
-        raise InputError(f"method '{spec.name}' on dataset '{dataset.name}'",
-                         f"the method needs feature coordinates but the dataset is a distance "
-                         f"matrix; methods that take distances: {takers}")
+        raise InputError(
+            f"method '{spec.name}' on dataset '{dataset.name}'",
+            f"the method needs feature coordinates but the dataset is a distance "
+            f"matrix; methods that take distances: {takers}",
+        )
     values = {p.name: p.default for p in spec.params}
     values.update(params)
     estimator = spec.build(n_components, seed, precomputed, **values)
@@ -80,8 +84,7 @@ def fit_embedding(spec: MethodSpec, dataset: Dataset, n_components: int,
     return check_embedding(raw, dataset.n, n_components, spec.name, dataset.name)
 
 
-def check_embedding(raw: Any, n: int, n_components: int, method: str = "",
-                    dataset: str = "") -> np.ndarray:
+def check_embedding(raw: Any, n: int, n_components: int, method: str = "", dataset: str = "") -> np.ndarray:
     """Convert a method's output to float64 and refuse what cannot be scored.
 
     Parameters
@@ -99,6 +102,7 @@ def check_embedding(raw: Any, n: int, n_components: int, method: str = "",
     -------
     ndarray of shape (n, n_components), float64
     """
+
     def fail(reason: str) -> DegenerateEmbedding:
         return DegenerateEmbedding(reason, method, dataset)
 
@@ -120,6 +124,5 @@ def check_embedding(raw: Any, n: int, n_components: int, method: str = "",
         raise fail("all points coincide (zero spread)")
     flat = np.flatnonzero(spread == 0)
     if n > 1 and flat.size:
-        logger.warning("%s on %s: embedding axes %s are constant", method, dataset,
-                       ", ".join(map(str, flat)))
+        logger.warning("%s on %s: embedding axes %s are constant", method, dataset, ", ".join(map(str, flat)))
     return np.ascontiguousarray(Y)

@@ -1,12 +1,12 @@
 """Registry of embedding methods, filled by the :func:`register_method` decorator."""
+
 from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, Literal
 
-from .._params import Param
-from ..errors import InputError, suggest
+from ..params import Param
 
 Family = Literal["linear", "distance", "neighbour", "spectral", "other"]
 
@@ -54,26 +54,31 @@ class MethodSpec:
 METHODS: dict[str, MethodSpec] = {}
 
 
-def register_method(name: str, *, params: tuple[Param, ...] = (), description: str,
-                    family: Family = "other", accepts_distances: bool = False,
-                    randomized: bool = True, quadratic_memory: bool = False,
-                    source: str = "") -> Callable[[Callable[..., Any]], Callable[..., Any]]:
+def register_method(
+    name: str,
+    *,
+    params: tuple[Param, ...] = (),
+    description: str,
+    family: Family = "other",
+    accepts_distances: bool = False,
+    randomized: bool = True,
+    quadratic_memory: bool = False,
+    source: str = "",
+) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
     """Decorator that adds an estimator builder to :data:`METHODS`."""
+
     def wrap(fn: Callable[..., Any]) -> Callable[..., Any]:
-        METHODS[name] = MethodSpec(name, fn, tuple(params), description, family,
-                                   accepts_distances, randomized, quadratic_memory, source)
+        METHODS[name] = MethodSpec(
+            name,
+            fn,
+            tuple(params),
+            description,
+            family,
+            accepts_distances,
+            randomized,
+            quadratic_memory,
+            source,
+        )
         return fn
+
     return wrap
-
-
-def get_method_spec(name: str, where: str = "") -> MethodSpec:
-    """Look up a method by registry name or plug-in path (``package.module:Name``)."""
-    if ":" in name:
-        from ._plugin import plugin_spec
-        return plugin_spec(name, where)
-    try:
-        return METHODS[name]
-    except KeyError:
-        raise InputError(where, f"unknown method '{name}'{suggest(name, METHODS)}; "
-                                f"see 'foldbench list methods', or name a plug-in as "
-                                f"'package.module:Name'") from None

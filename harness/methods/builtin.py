@@ -5,6 +5,7 @@ follow scikit-learn unless a benchmark needs a different one; those places say
 why.  Randomized estimators get the cell's seed as ``random_state``; ``n_jobs``
 is left at its default (one process) because the runner parallelises cells.
 """
+
 from __future__ import annotations
 
 from typing import Any
@@ -13,8 +14,8 @@ from sklearn.decomposition import PCA, KernelPCA
 from sklearn.manifold import MDS, TSNE, Isomap, LocallyLinearEmbedding, SpectralEmbedding
 from sklearn.random_projection import GaussianRandomProjection
 
-from .._params import Param, at_least, between
 from ..errors import InputError
+from ..params import Param, at_least, between
 from ._classical import ClassicalScaling
 from ._registry import register_method
 from .sammon import SammonMapping
@@ -37,17 +38,24 @@ def _neighbours(default: int = 10) -> Param:
 
 
 @register_method(
-    "pca", params=(Param("whiten", bool, False, "scale components to unit variance"),),
-    description="principal component analysis (full SVD)", family="linear",
-    randomized=False, source="Pearson 1901; Hotelling 1933 (scikit-learn PCA)")
+    "pca",
+    params=(Param("whiten", bool, False, "scale components to unit variance"),),
+    description="principal component analysis (full SVD)",
+    family="linear",
+    randomized=False,
+    source="Pearson 1901; Hotelling 1933 (scikit-learn PCA)",
+)
 def build_pca(n_components: int, seed: int, precomputed: bool, *, whiten: bool) -> PCA:
     """PCA with the full SVD, so the result does not depend on the seed."""
     return PCA(n_components=n_components, whiten=whiten, svd_solver="full")
 
 
 @register_method(
-    "random_projection", description="Gaussian random projection", family="linear",
-    source="Johnson and Lindenstrauss 1984 (scikit-learn GaussianRandomProjection)")
+    "random_projection",
+    description="Gaussian random projection",
+    family="linear",
+    source="Johnson and Lindenstrauss 1984 (scikit-learn GaussianRandomProjection)",
+)
 def build_random_projection(n_components: int, seed: int, precomputed: bool) -> GaussianRandomProjection:
     """Projection on a Gaussian random matrix."""
     return GaussianRandomProjection(n_components=n_components, random_state=seed)
@@ -57,27 +65,36 @@ def build_random_projection(n_components: int, seed: int, precomputed: bool) -> 
     "kernel_pca",
     params=(
         # scikit-learn defaults to the linear kernel, which is plain PCA.
-        Param("kernel", str, "rbf", "kernel function", choices=("rbf", "poly", "sigmoid", "cosine", "linear")),
+        Param(
+            "kernel", str, "rbf", "kernel function", choices=("rbf", "poly", "sigmoid", "cosine", "linear")
+        ),
         Param("gamma", float, None, "kernel width for rbf/poly/sigmoid (default 1/n_features)", _positive),
         Param("degree", int, 3, "degree of the poly kernel", at_least(1)),
     ),
-    description="kernel principal component analysis", family="spectral",
-    quadratic_memory=True, source="Schoelkopf, Smola and Mueller 1998 (scikit-learn KernelPCA)")
-def build_kernel_pca(n_components: int, seed: int, precomputed: bool, *, kernel: str,
-                     gamma: float | None, degree: int) -> KernelPCA:
+    description="kernel principal component analysis",
+    family="spectral",
+    quadratic_memory=True,
+    source="Schoelkopf, Smola and Mueller 1998 (scikit-learn KernelPCA)",
+)
+def build_kernel_pca(
+    n_components: int, seed: int, precomputed: bool, *, kernel: str, gamma: float | None, degree: int
+) -> KernelPCA:
     """Kernel PCA; the eigensolver may be iterative, hence the seed."""
-    return KernelPCA(n_components=n_components, kernel=kernel, gamma=gamma, degree=degree,
-                     random_state=seed)
+    return KernelPCA(n_components=n_components, kernel=kernel, gamma=gamma, degree=degree, random_state=seed)
 
 
 @register_method(
-    "classical_mds", description="classical (Torgerson) scaling; equals PCA on coordinates",
-    family="distance", accepts_distances=True, randomized=False, quadratic_memory=True,
-    source="Torgerson 1952")
+    "classical_mds",
+    description="classical (Torgerson) scaling; equals PCA on coordinates",
+    family="distance",
+    accepts_distances=True,
+    randomized=False,
+    quadratic_memory=True,
+    source="Torgerson 1952",
+)
 def build_classical_mds(n_components: int, seed: int, precomputed: bool) -> ClassicalScaling:
     """Classical scaling from distances, PCA scores from coordinates."""
-    return ClassicalScaling(n_components=n_components,
-                            metric="precomputed" if precomputed else "euclidean")
+    return ClassicalScaling(n_components=n_components, metric="precomputed" if precomputed else "euclidean")
 
 
 @register_method(
@@ -91,45 +108,81 @@ def build_classical_mds(n_components: int, seed: int, precomputed: bool) -> Clas
         Param("max_iter", int, 100, "SMACOF iterations per start", at_least(1)),
         Param("eps", float, 1e-6, "relative stress change at which SMACOF stops", _positive),
     ),
-    description="metric multidimensional scaling (SMACOF)", family="distance",
-    accepts_distances=True, quadratic_memory=True,
-    source="Kruskal 1964; de Leeuw 1977 (scikit-learn MDS)")
-def build_mds(n_components: int, seed: int, precomputed: bool, *, init: str, n_init: int,
-              max_iter: int, eps: float) -> MDS:
+    description="metric multidimensional scaling (SMACOF)",
+    family="distance",
+    accepts_distances=True,
+    quadratic_memory=True,
+    source="Kruskal 1964; de Leeuw 1977 (scikit-learn MDS)",
+)
+def build_mds(
+    n_components: int, seed: int, precomputed: bool, *, init: str, n_init: int, max_iter: int, eps: float
+) -> MDS:
     """Metric MDS by SMACOF, from coordinates or a distance matrix."""
-    return MDS(n_components=n_components, metric_mds=True, init=init, n_init=n_init,
-               max_iter=max_iter, eps=eps, random_state=seed,
-               metric="precomputed" if precomputed else "euclidean", normalized_stress="auto")
+    return MDS(
+        n_components=n_components,
+        metric_mds=True,
+        init=init,
+        n_init=n_init,
+        max_iter=max_iter,
+        eps=eps,
+        random_state=seed,
+        metric="precomputed" if precomputed else "euclidean",
+        normalized_stress="auto",
+    )
 
 
 @register_method(
     "sammon",
     params=(
-        Param("init", str, "pca", "start configuration (classical scaling from distances)",
-              choices=("pca", "random")),
+        Param(
+            "init",
+            str,
+            "pca",
+            "start configuration (classical scaling from distances)",
+            choices=("pca", "random"),
+        ),
         # Each iteration costs a few n x n passes; 50 bring digits (1797
         # points) within 0.1% of its final stress in about three seconds.
         Param("max_iter", int, 50, "pseudo-Newton iterations", at_least(1)),
         Param("tol", float, 1e-9, "relative stress drop at which to stop", at_least(0)),
     ),
-    description="Sammon mapping (pseudo-Newton with step halving)", family="distance",
-    accepts_distances=True, quadratic_memory=True, source="Sammon 1969 (own implementation)")
-def build_sammon(n_components: int, seed: int, precomputed: bool, *, init: str, max_iter: int,
-                 tol: float) -> SammonMapping:
+    description="Sammon mapping (pseudo-Newton with step halving)",
+    family="distance",
+    accepts_distances=True,
+    quadratic_memory=True,
+    source="Sammon 1969 (own implementation)",
+)
+def build_sammon(
+    n_components: int, seed: int, precomputed: bool, *, init: str, max_iter: int, tol: float
+) -> SammonMapping:
     """Our Sammon mapping; the seed matters for ``init="random"`` only."""
-    return SammonMapping(n_components=n_components, init=init, max_iter=max_iter, tol=tol,
-                         random_state=seed, metric="precomputed" if precomputed else "euclidean")
+    return SammonMapping(
+        n_components=n_components,
+        init=init,
+        max_iter=max_iter,
+        tol=tol,
+        random_state=seed,
+        metric="precomputed" if precomputed else "euclidean",
+    )
 
 
 @register_method(
-    "isomap", params=(_neighbours(),),
-    description="Isomap: classical scaling of graph geodesic distances", family="distance",
-    accepts_distances=True, randomized=False, quadratic_memory=True,
-    source="Tenenbaum, de Silva and Langford 2000 (scikit-learn Isomap)")
+    "isomap",
+    params=(_neighbours(),),
+    description="Isomap: classical scaling of graph geodesic distances",
+    family="distance",
+    accepts_distances=True,
+    randomized=False,
+    quadratic_memory=True,
+    source="Tenenbaum, de Silva and Langford 2000 (scikit-learn Isomap)",
+)
 def build_isomap(n_components: int, seed: int, precomputed: bool, *, n_neighbors: int) -> Isomap:
     """Isomap on a k-nearest-neighbour graph."""
-    return Isomap(n_components=n_components, n_neighbors=n_neighbors,
-                  metric="precomputed" if precomputed else "minkowski")
+    return Isomap(
+        n_components=n_components,
+        n_neighbors=n_neighbors,
+        metric="precomputed" if precomputed else "minkowski",
+    )
 
 
 @register_method(
@@ -139,41 +192,52 @@ def build_isomap(n_components: int, seed: int, precomputed: bool, *, n_neighbors
         Param("method", str, "standard", "LLE variant", choices=("standard", "modified", "hessian", "ltsa")),
         Param("reg", float, 1e-3, "regularisation of the local weight fits", _positive),
     ),
-    description="locally linear embedding", family="spectral",
+    description="locally linear embedding",
+    family="spectral",
     source="Roweis and Saul 2000; Zhang and Wang 2006; Donoho and Grimes 2003; "
-           "Zhang and Zha 2004 (scikit-learn LocallyLinearEmbedding)")
-def build_lle(n_components: int, seed: int, precomputed: bool, *, n_neighbors: int, method: str,
-              reg: float) -> LocallyLinearEmbedding:
+    "Zhang and Zha 2004 (scikit-learn LocallyLinearEmbedding)",
+)
+def build_lle(
+    n_components: int, seed: int, precomputed: bool, *, n_neighbors: int, method: str, reg: float
+) -> LocallyLinearEmbedding:
     """LLE and its variants; ARPACK's start vector takes the seed."""
     if method == "hessian" and n_neighbors <= n_components * (n_components + 3) // 2:
         need = n_components * (n_components + 3) // 2 + 1
-        raise InputError("lle.n_neighbors", f"method 'hessian' with {n_components} components "
-                                            f"needs n_neighbors >= {need}, got {n_neighbors}")
-    return LocallyLinearEmbedding(n_components=n_components, n_neighbors=n_neighbors,
-                                  method=method, reg=reg, random_state=seed)
+        raise InputError(
+            "lle.n_neighbors",
+            f"method 'hessian' with {n_components} components needs n_neighbors >= {need}, got {n_neighbors}",
+        )
+    return LocallyLinearEmbedding(
+        n_components=n_components, n_neighbors=n_neighbors, method=method, reg=reg, random_state=seed
+    )
 
 
 @register_method(
     "laplacian_eigenmaps",
     params=(
         _neighbours(),
-        Param("affinity", str, "nearest_neighbors", "graph weights",
-              choices=("nearest_neighbors", "rbf")),
+        Param("affinity", str, "nearest_neighbors", "graph weights", choices=("nearest_neighbors", "rbf")),
         Param("gamma", float, None, "rbf width (default 1/n_features)", _positive),
     ),
-    description="Laplacian eigenmaps (spectral embedding of a neighbour graph)", family="spectral",
+    description="Laplacian eigenmaps (spectral embedding of a neighbour graph)",
+    family="spectral",
     accepts_distances=True,
-    source="Belkin and Niyogi 2003 (scikit-learn SpectralEmbedding)")
-def build_laplacian_eigenmaps(n_components: int, seed: int, precomputed: bool, *, n_neighbors: int,
-                              affinity: str, gamma: float | None) -> SpectralEmbedding:
+    source="Belkin and Niyogi 2003 (scikit-learn SpectralEmbedding)",
+)
+def build_laplacian_eigenmaps(
+    n_components: int, seed: int, precomputed: bool, *, n_neighbors: int, affinity: str, gamma: float | None
+) -> SpectralEmbedding:
     """Spectral embedding; from a distance matrix the k-nearest-neighbour graph is used."""
     if precomputed:
         if affinity != "nearest_neighbors":
-            raise InputError("laplacian_eigenmaps.affinity",
-                             "'nearest_neighbors' on a distance matrix ('rbf' needs coordinates)")
+            raise InputError(
+                "laplacian_eigenmaps.affinity",
+                "'nearest_neighbors' on a distance matrix ('rbf' needs coordinates)",
+            )
         affinity = "precomputed_nearest_neighbors"
-    return SpectralEmbedding(n_components=n_components, affinity=affinity, gamma=gamma,
-                             n_neighbors=n_neighbors, random_state=seed)
+    return SpectralEmbedding(
+        n_components=n_components, affinity=affinity, gamma=gamma, n_neighbors=n_neighbors, random_state=seed
+    )
 
 
 @register_method(
@@ -181,22 +245,50 @@ def build_laplacian_eigenmaps(n_components: int, seed: int, precomputed: bool, *
     params=(
         Param("perplexity", float, 30.0, "effective number of neighbours (must be < n/3)", _positive),
         Param("early_exaggeration", float, 12.0, "attraction boost in the first 250 iterations", at_least(1)),
-        Param("learning_rate", (str, float), "auto", "'auto' (n/early_exaggeration/4) or a number > 0",
-              _auto_or_positive),
+        Param(
+            "learning_rate",
+            (str, float),
+            "auto",
+            "'auto' (n/early_exaggeration/4) or a number > 0",
+            _auto_or_positive,
+        ),
         Param("max_iter", int, 1000, "gradient-descent iterations", at_least(250)),
-        Param("init", str, "pca", "start configuration; forced to 'random' on a distance matrix",
-              choices=("pca", "random")),
+        Param(
+            "init",
+            str,
+            "pca",
+            "start configuration; forced to 'random' on a distance matrix",
+            choices=("pca", "random"),
+        ),
         Param("angle", float, 0.5, "Barnes-Hut accuracy/speed trade-off", between(0.0, 1.0)),
     ),
-    description="t-distributed stochastic neighbour embedding (Barnes-Hut)", family="neighbour",
+    description="t-distributed stochastic neighbour embedding (Barnes-Hut)",
+    family="neighbour",
     accepts_distances=True,
-    source="van der Maaten and Hinton 2008; van der Maaten 2014 (scikit-learn TSNE)")
-def build_tsne(n_components: int, seed: int, precomputed: bool, *, perplexity: float,
-               early_exaggeration: float, learning_rate: str | float, max_iter: int, init: str,
-               angle: float) -> TSNE:
+    source="van der Maaten and Hinton 2008; van der Maaten 2014 (scikit-learn TSNE)",
+)
+def build_tsne(
+    n_components: int,
+    seed: int,
+    precomputed: bool,
+    *,
+    perplexity: float,
+    early_exaggeration: float,
+    learning_rate: str | float,
+    max_iter: int,
+    init: str,
+    angle: float,
+) -> TSNE:
     """t-SNE; PCA start is impossible from distances, and Barnes-Hut works up to 3 dimensions."""
-    return TSNE(n_components=n_components, perplexity=perplexity,
-                early_exaggeration=early_exaggeration, learning_rate=learning_rate,
-                max_iter=max_iter, init="random" if precomputed else init, angle=angle,
-                method="barnes_hut" if n_components <= 3 else "exact",
-                metric="precomputed" if precomputed else "euclidean", random_state=seed)
+    return TSNE(
+        n_components=n_components,
+        perplexity=perplexity,
+        early_exaggeration=early_exaggeration,
+        learning_rate=learning_rate,
+        max_iter=max_iter,
+        init="random" if precomputed else init,
+        angle=angle,
+        method="barnes_hut" if n_components <= 3 else "exact",
+        metric="precomputed" if precomputed else "euclidean",
+        random_state=seed,
+    )

@@ -17,6 +17,7 @@ identical updates and stay together.  Embedded distances are floored at
 ``1e-12`` (after scaling the distances to mean 1) so a pair that collapses
 does not divide by zero.
 """
+
 from __future__ import annotations
 
 import logging
@@ -68,9 +69,16 @@ class SammonMapping(BaseEstimator):
         Number of iterations run.
     """
 
-    def __init__(self, n_components: int = 2, *, init: str = "pca", max_iter: int = 500,
-                 tol: float = 1e-9, random_state: int | np.random.RandomState | None = None,
-                 metric: str = "euclidean") -> None:
+    def __init__(
+        self,
+        n_components: int = 2,
+        *,
+        init: str = "pca",
+        max_iter: int = 500,
+        tol: float = 1e-9,
+        random_state: int | np.random.RandomState | None = None,
+        metric: str = "euclidean",
+    ) -> None:
         self.n_components = n_components
         self.init = init
         self.max_iter = max_iter
@@ -102,8 +110,11 @@ class SammonMapping(BaseEstimator):
             raise ValueError("Sammon mapping needs at least two distinct items; all distances are zero")
         D = D / scale
         if self.init == "pca":
-            Y = classical_scaling(D, self.n_components) if self.metric == "precomputed" \
+            Y = (
+                classical_scaling(D, self.n_components)
+                if self.metric == "precomputed"
                 else pca_scores(X, self.n_components) / scale
+            )
         else:
             Y = rng.standard_normal((D.shape[0], self.n_components))
 
@@ -140,65 +151,73 @@ class SammonMapping(BaseEstimator):
         if X.shape[0] != X.shape[1]:
             raise ValueError(f"metric='precomputed' needs a square distance matrix, got shape {X.shape}")
         if np.any(X < 0) or not np.allclose(X, X.T) or np.any(np.diag(X) != 0):
-            raise ValueError("a precomputed distance matrix must be symmetric, non-negative, "
-                             "with a zero diagonal")
+            raise ValueError(
+                "a precomputed distance matrix must be symmetric, non-negative, with a zero diagonal"
+            )
         return (X + X.T) / 2
 
 
-def _minimise(D: np.ndarray, Y: np.ndarray, max_iter: int, tol: float,
-              rng: np.random.RandomState) -> tuple[np.ndarray, float, list[float]]:
-    """Run the safeguarded pseudo-Newton iteration from ``Y``; ``D`` has mean 1.
+class _SammonObjective:
+    """Sammon's stress of configurations against fixed distances ``D`` (mean 1), and its Newton step.
 
     The n x n work is done in row blocks that fit in cache, which is several
     times faster than whole-matrix passes and needs only one stored n x n
     array besides ``D``.
     """
-    n, k = Y.shape
-    rows = max(1, _BLOCK_BYTES // (8 * n))
-    blocks = [slice(i, min(i + rows, n)) for i in range(0, n, rows)]
-    weighted = D > 0                          # the diagonal and duplicates carry no weight
-    has_zero_pairs = np.count_nonzero(weighted) < n * (n - 1)
-    with np.errstate(divide="ignore"):
-        D_inv = np.where(weighted, 1.0 / D, 0.0)
-    D_inv_rows = D_inv.sum(axis=1)
-    d_total = D.sum()                         # twice the sum over pairs i<j
 
-    def embedded_block(Y: np.ndarray, b: slice) -> np.ndarray:
-        E = cdist(Y[b], Y)
-        if has_zero_pairs:
-            E *= weighted[b]
-        return E
+    def __init__(self, D: np.ndarray) -> None:
+        n = D.shape[0]
+        rows = max(1, _BLOCK_BYTES // (8 * n))
+        self.blocks = [slice(i, min(i + rows, n)) for i in range(0, n, rows)]
+        self.weighted = D > 0  # the diagonal and duplicates carry no weight
+        self.has_zero_pairs = np.count_nonzero(self.weighted) < n * (n - 1)
+        with np.errstate(divide="ignore"):
+            self.D_inv = np.where(self.weighted, 1.0 / D, 0.0)
+        self.D_inv_rows = self.D_inv.sum(axis=1)
+        self.d_total = D.sum()  # twice the sum over pairs i<j
 
-    def stress(Y: np.ndarray) -> float:
+    def collapsed(self, Y: np.ndarray) -> bool:
+        """Two distinct items sit on the same point (no force would push them apart)."""
+        return any(np.any(cdist(Y[b], Y)[self.weighted[b]] <= _FLOOR) for b in self.blocks)
+
+    def stress(self, Y: np.ndarray) -> float:
+        """Sammon's stress of ``Y``."""
         # Over ordered pairs, sum (d - e)^2 / d = sum d - 2 sum e + sum e^2 / d; the
         # last sum follows from Y by the Gram identity without an n x n array.
-        e_sum = sum(embedded_block(Y, b).sum() for b in blocks)
+        e_sum = 0.0
+        for b in self.blocks:
+            E = cdist(Y[b], Y)
+            if self.has_zero_pairs:
+                E *= self.weighted[b]
+            e_sum += E.sum()
         sq = np.einsum("ij,ij->i", Y, Y)
-        e2_over_d = 2.0 * (sq @ D_inv_rows) - 2.0 * np.einsum("ij,ij->", Y, D_inv @ Y)
-        return max(d_total - 2.0 * e_sum + e2_over_d, 0.0) / d_total
+        e2_over_d = 2.0 * (sq @ self.D_inv_rows) - 2.0 * np.einsum("ij,ij->", Y, self.D_inv @ Y)
+        return max(self.d_total - 2.0 * e_sum + e2_over_d, 0.0) / self.d_total
 
-    def newton_step(Y: np.ndarray) -> np.ndarray:
+    def newton_step(self, Y: np.ndarray) -> np.ndarray:
+        """The pseudo-Newton move of every point, each capped at ``_MAX_MOVE``."""
         # Gradient and diagonal second derivative of E, both times c/2
         # (c = sum of d_ij over pairs), which cancels in their ratio:
         #   grad_p = sum_j W_pj (y_j - y_p),             W = 1/e - 1/d
         #   curv_pk = sum_j V_pj (y_pk - y_jk)^2 - W_pj,   V = 1/e^3
+        n, k = Y.shape
         Z = np.hstack([Y, Y * Y, np.ones((n, 1))])
         WZ = np.empty_like(Z)
         VZ = np.empty_like(Z)
-        for b in blocks:
+        for b in self.blocks:
             E = cdist(Y[b], Y)
             np.maximum(E, _FLOOR, out=E)
             E_inv = np.divide(1.0, E, out=E)
-            if has_zero_pairs:
-                E_inv *= weighted[b]
+            if self.has_zero_pairs:
+                E_inv *= self.weighted[b]
             else:
                 E_inv[np.arange(b.stop - b.start), np.arange(b.start, b.stop)] = 0.0
-            WZ[b] = E_inv @ Z - D_inv[b] @ Z
+            WZ[b] = E_inv @ Z - self.D_inv[b] @ Z
             V = E_inv * E_inv
             V *= E_inv
             VZ[b] = V @ Z
-        WY, W_rows = WZ[:, :k], WZ[:, 2 * k:]
-        VY, VY2, V_rows = VZ[:, :k], VZ[:, k:2 * k], VZ[:, 2 * k:]
+        WY, W_rows = WZ[:, :k], WZ[:, 2 * k :]
+        VY, VY2, V_rows = VZ[:, :k], VZ[:, k : 2 * k], VZ[:, 2 * k :]
         grad = WY - W_rows * Y
         curvature = Y * Y * V_rows - 2.0 * Y * VY + VY2 - W_rows
         step = grad / np.maximum(np.abs(curvature), _FLOOR)
@@ -209,23 +228,27 @@ def _minimise(D: np.ndarray, Y: np.ndarray, max_iter: int, tol: float,
         step *= np.minimum(1.0, _MAX_MOVE / np.maximum(lengths, _FLOOR))[:, None]
         return step
 
-    collapsed = any(np.any(cdist(Y[b], Y)[weighted[b]] <= _FLOOR) for b in blocks)
-    if collapsed:
-        # Two distinct items start on the same point; no force would push them
-        # apart, so nudge the start.
+
+def _minimise(
+    D: np.ndarray, Y: np.ndarray, max_iter: int, tol: float, rng: np.random.RandomState
+) -> tuple[np.ndarray, float, list[float]]:
+    """Run the safeguarded pseudo-Newton iteration from ``Y``; ``D`` has mean 1."""
+    objective = _SammonObjective(D)
+    if objective.collapsed(Y):
+        # Two distinct items start on the same point; nudge the start.
         Y = Y + 1e-6 * rng.standard_normal(Y.shape)
-    current = stress(Y)
+    current = objective.stress(Y)
     history = [current]
     fraction = 0.5
     for _ in range(max_iter):
         if current == 0.0:
             break
-        newton = newton_step(Y)
+        newton = objective.newton_step(Y)
         # Start from twice the last accepted fraction of the step.
         fraction = min(1.0, 2.0 * fraction)
         for _ in range(_MAX_HALVINGS):
             trial = Y - fraction * newton
-            value = stress(trial)
+            value = objective.stress(trial)
             if value < current:
                 break
             fraction *= 0.5

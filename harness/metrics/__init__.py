@@ -7,17 +7,19 @@ asked), :func:`evaluate` (one k, plain floats), :func:`coranking_curve`, the
 Distances are Euclidean in both spaces, or read from a square matrix for the
 data when ``metric="precomputed"``.
 """
+
 from __future__ import annotations
 
 import logging
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ._catalogue import MEASURES, MeasureInfo
+from ._catalogue import MEASURES, MeasureInfo, higher_is_better, measure_stem
 from ._distances import DistanceRows
 from ._global import JACKKNIFE_GROUPS, global_measures
 from ._labels import knn_accuracy, silhouette
@@ -25,7 +27,16 @@ from ._local import PER_K, collect, curve_table, mean_interval
 from ._memory import block_rows, default_memory_bytes
 from ._ranks import rank_blocks
 
-__all__ = ["MEASURES", "MeasureInfo", "MeasureResult", "score", "evaluate", "coranking_curve"]
+__all__ = [
+    "MEASURES",
+    "MeasureInfo",
+    "MeasureResult",
+    "coranking_curve",
+    "evaluate",
+    "higher_is_better",
+    "measure_stem",
+    "score",
+]
 
 log = logging.getLogger(__name__)
 
@@ -85,12 +96,13 @@ def _inputs(X: object, Y: object, metric: str) -> tuple[np.ndarray | None, np.nd
     return x, None, y
 
 
-def _ks(ks: object, n: int) -> list[int]:
+def _ks(ks: Iterable[Any], n: int) -> list[int]:
     try:
-        values = [int(k) for k in ks]  # type: ignore[union-attr]
+        given = list(ks)
+        values = [int(k) for k in given]
     except (TypeError, ValueError):
         raise InputError("ks", f"a list of integers, got {ks!r}") from None
-    if not values or any(int(k) != k for k in ks):  # type: ignore[union-attr]
+    if not values or any(int(k) != k for k in given):
         raise InputError("ks", f"a non-empty list of integers, got {ks!r}")
     for k in values:
         # scikit-learn's trustworthiness refuses k >= n/2: its normaliser
@@ -114,8 +126,15 @@ def _vector_labels(labels: object, n: int) -> np.ndarray:
     return arr
 
 
-def _local(x_points: np.ndarray | None, x_matrix: np.ndarray | None, y: np.ndarray,
-           ks: Sequence[int], k_curve: int, queries: np.ndarray, memory_bytes: int):
+def _local(
+    x_points: np.ndarray | None,
+    x_matrix: np.ndarray | None,
+    y: np.ndarray,
+    ks: Sequence[int],
+    k_curve: int,
+    queries: np.ndarray,
+    memory_bytes: int,
+):
     n = y.shape[0]
     data = DistanceRows(points=x_points) if x_matrix is None else DistanceRows(matrix=x_matrix)
     emb = DistanceRows(points=y)
@@ -125,11 +144,22 @@ def _local(x_points: np.ndarray | None, x_matrix: np.ndarray | None, y: np.ndarr
     return collect(rank_blocks(data, emb, queries, k, rows), n, ks, k_curve)
 
 
-def score(X: object, Y: object, *, ks: Sequence[int], metric: str = "euclidean",
-          labels: object = None, latent: object = None, seed: int = 0,
-          pair_sample_above: int = 5000, n_pairs: int = 200_000,
-          estimate_above: int | None = None, n_queries: int = 2000,
-          memory_bytes: int | None = None, curve_k_max: int | None = None) -> MeasureResult:
+def score(
+    X: object,
+    Y: object,
+    *,
+    ks: Sequence[int],
+    metric: str = "euclidean",
+    labels: object = None,
+    latent: object = None,
+    seed: int = 0,
+    pair_sample_above: int = 5000,
+    n_pairs: int = 200_000,
+    estimate_above: int | None = None,
+    n_queries: int = 2000,
+    memory_bytes: int | None = None,
+    curve_k_max: int | None = None,
+) -> MeasureResult:
     """Score an embedding with every applicable measure.
 
     Parameters
@@ -218,8 +248,15 @@ def score(X: object, Y: object, *, ks: Sequence[int], metric: str = "euclidean",
         halfwidths["rnx_auc"] = hw
 
     g_values, g_halfwidths = global_measures(
-        x_points, x_matrix, y, latent, pair_sample_above=pair_sample_above, n_pairs=n_pairs,
-        seed=int(pair_seed.generate_state(1)[0]), memory_bytes=memory_bytes)
+        x_points,
+        x_matrix,
+        y,
+        latent,
+        pair_sample_above=pair_sample_above,
+        n_pairs=n_pairs,
+        seed=int(pair_seed.generate_state(1)[0]),
+        memory_bytes=memory_bytes,
+    )
     values.update(g_values)
     halfwidths.update(g_halfwidths)
 
@@ -234,8 +271,9 @@ def score(X: object, Y: object, *, ks: Sequence[int], metric: str = "euclidean",
     return MeasureResult(values, halfwidths, frozenset(halfwidths), curve)
 
 
-def evaluate(X: object, Y: object, k: int = 10, labels: object = None,
-             metric: str = "euclidean") -> dict[str, float]:
+def evaluate(
+    X: object, Y: object, k: int = 10, labels: object = None, metric: str = "euclidean"
+) -> dict[str, float]:
     """Score an embedding at one neighbourhood size, with plain keys.
 
     Parameters

@@ -2,6 +2,7 @@
 
 The ranker reads directions from here; ``foldbench list measures`` prints it.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -39,48 +40,149 @@ class MeasureInfo:
     source: str
 
 
-MEASURES: dict[str, MeasureInfo] = {m.name: m for m in (
-    MeasureInfo("trustworthiness", True, "local", True, None,
-                "1 - 2/(nk(2n-3k-1)) * sum of (rank in data - k) over embedding neighbours that are not data neighbours",
-                "Venna & Kaski 2001"),
-    MeasureInfo("continuity", True, "local", True, None,
-                "trustworthiness with data and embedding swapped: penalises data neighbours missing from the embedding",
-                "Venna & Kaski 2001"),
-    MeasureInfo("knn_recall", True, "local", True, None,
-                "mean over points of |kNN in data ∩ kNN in embedding| / k",
-                "neighbourhood preservation, common practice"),
-    MeasureInfo("mrre_data", False, "local", True, None,
-                "mean relative rank error of data neighbours, sum |rho-r|/rho normalised to [0, 1]",
-                "Lee & Verleysen 2009"),
-    MeasureInfo("mrre_embedding", False, "local", True, None,
-                "mean relative rank error of embedding neighbours, sum |rho-r|/r normalised to [0, 1]",
-                "Lee & Verleysen 2009"),
-    MeasureInfo("lcmc", True, "local", True, None,
-                "local continuity meta-criterion: Q_NX(k) - k/(n-1)",
-                "Chen & Buja 2009"),
-    MeasureInfo("rnx_auc", True, "local", False, None,
-                "area under R_NX(K) for K = 1..K_max on a log-K scale (weights 1/K)",
-                "Lee, Peluffo-Ordonez & Verleysen 2015"),
-    MeasureInfo("stress", False, "global", False, None,
-                "Kruskal stress-1 after the best uniform scaling s: sqrt(sum (d - s e)^2 / sum d^2)",
-                "Kruskal 1964"),
-    MeasureInfo("sammon_stress", False, "global", False, None,
-                "(1 / sum d) * sum (d - s e)^2 / d with the best uniform scaling s",
-                "Sammon 1969"),
-    MeasureInfo("shepard_spearman", True, "global", False, None,
-                "Spearman correlation of all pairwise distances, data vs embedding (Shepard diagram)",
-                "Shepard 1962; Spearman 1904"),
-    MeasureInfo("knn_accuracy", True, "labels", True, "labels",
-                "k-NN classifier accuracy in the embedding, stratified 5-fold cross-validation",
-                "common practice"),
-    MeasureInfo("silhouette", True, "labels", False, "labels",
-                "mean silhouette width of the labels in the embedding",
-                "Rousseeuw 1987"),
-    MeasureInfo("latent_spearman", True, "latent", False, "latent",
-                "Spearman correlation of pairwise distances, true latent coordinates vs embedding",
-                "recovery of known coordinates, common practice"),
-    MeasureInfo("fit_seconds", False, "cost", False, None,
-                "wall-clock seconds of fit_transform", "measured"),
-    MeasureInfo("fit_peak_mb", False, "cost", False, None,
-                "peak resident memory added during fit_transform, MiB", "measured"),
-)}
+MEASURES: dict[str, MeasureInfo] = {
+    m.name: m
+    for m in (
+        MeasureInfo(
+            "trustworthiness",
+            True,
+            "local",
+            True,
+            None,
+            "1 - 2/(nk(2n-3k-1)) * sum of (rank in data - k) over embedding neighbours "
+            "that are not data neighbours",
+            "Venna & Kaski 2001",
+        ),
+        MeasureInfo(
+            "continuity",
+            True,
+            "local",
+            True,
+            None,
+            "trustworthiness with data and embedding swapped: penalises data neighbours "
+            "missing from the embedding",
+            "Venna & Kaski 2001",
+        ),
+        MeasureInfo(
+            "knn_recall",
+            True,
+            "local",
+            True,
+            None,
+            "mean over points of |kNN in data ∩ kNN in embedding| / k",
+            "neighbourhood preservation, common practice",
+        ),
+        MeasureInfo(
+            "mrre_data",
+            False,
+            "local",
+            True,
+            None,
+            "mean relative rank error of data neighbours, sum |rho-r|/rho normalised to [0, 1]",
+            "Lee & Verleysen 2009",
+        ),
+        MeasureInfo(
+            "mrre_embedding",
+            False,
+            "local",
+            True,
+            None,
+            "mean relative rank error of embedding neighbours, sum |rho-r|/r normalised to [0, 1]",
+            "Lee & Verleysen 2009",
+        ),
+        MeasureInfo(
+            "lcmc",
+            True,
+            "local",
+            True,
+            None,
+            "local continuity meta-criterion: Q_NX(k) - k/(n-1)",
+            "Chen & Buja 2009",
+        ),
+        MeasureInfo(
+            "rnx_auc",
+            True,
+            "local",
+            False,
+            None,
+            "area under R_NX(K) for K = 1..K_max on a log-K scale (weights 1/K)",
+            "Lee, Peluffo-Ordonez & Verleysen 2015",
+        ),
+        MeasureInfo(
+            "stress",
+            False,
+            "global",
+            False,
+            None,
+            "Kruskal stress-1 after the best uniform scaling s: sqrt(sum (d - s e)^2 / sum d^2)",
+            "Kruskal 1964",
+        ),
+        MeasureInfo(
+            "sammon_stress",
+            False,
+            "global",
+            False,
+            None,
+            "(1 / sum d) * sum (d - s e)^2 / d with the best uniform scaling s",
+            "Sammon 1969",
+        ),
+        MeasureInfo(
+            "shepard_spearman",
+            True,
+            "global",
+            False,
+            None,
+            "Spearman correlation of all pairwise distances, data vs embedding (Shepard diagram)",
+            "Shepard 1962; Spearman 1904",
+        ),
+        MeasureInfo(
+            "knn_accuracy",
+            True,
+            "labels",
+            True,
+            "labels",
+            "k-NN classifier accuracy in the embedding, stratified 5-fold cross-validation",
+            "common practice",
+        ),
+        MeasureInfo(
+            "silhouette",
+            True,
+            "labels",
+            False,
+            "labels",
+            "mean silhouette width of the labels in the embedding",
+            "Rousseeuw 1987",
+        ),
+        MeasureInfo(
+            "latent_spearman",
+            True,
+            "latent",
+            False,
+            "latent",
+            "Spearman correlation of pairwise distances, true latent coordinates vs embedding",
+            "recovery of known coordinates, common practice",
+        ),
+        MeasureInfo(
+            "fit_seconds", False, "cost", False, None, "wall-clock seconds of fit_transform", "measured"
+        ),
+        MeasureInfo(
+            "fit_peak_mb",
+            False,
+            "cost",
+            False,
+            None,
+            "peak resident memory added during fit_transform, MiB",
+            "measured",
+        ),
+    )
+}
+
+
+def measure_stem(column: str) -> str:
+    """``trustworthiness@10`` -> ``trustworthiness``."""
+    return column.split("@", 1)[0]
+
+
+def higher_is_better(column: str) -> bool:
+    """Direction of a measure column (``trustworthiness@10``, ``stress``, ``fit_seconds``)."""
+    return MEASURES[measure_stem(column)].higher_is_better

@@ -13,6 +13,7 @@ Global measures (stress, Sammon stress, Shepard correlation) need accurate
 distances rather than an order, so :func:`pair_distances` uses the direct
 formula ``sqrt(sum((a - b)^2))``.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -36,6 +37,7 @@ class DistanceRows:
         if (points is None) == (matrix is None):
             raise ValueError("give exactly one of points or matrix")
         self._matrix = matrix
+        self._right: np.ndarray | None = None
         if points is not None:
             sq = np.einsum("ij,ij->i", points, points)
             # Right factor [x, |x|^2, 1]; the left factor of a block is
@@ -45,8 +47,7 @@ class DistanceRows:
             self._right[:, -2] = sq
             self._right[:, -1] = 1.0
             self.n = points.shape[0]
-        else:
-            self._right = None
+        elif matrix is not None:
             self.n = matrix.shape[0]
 
     @property
@@ -71,6 +72,7 @@ class DistanceRows:
             ``rows[r]`` to every point, itself included.
         """
         if self._right is None:
+            assert self._matrix is not None  # one of the two is always set (see __init__)
             if out is None:
                 return np.array(self._matrix[rows], dtype=np.float64)
             out[...] = self._matrix[rows]
@@ -84,8 +86,9 @@ class DistanceRows:
         return np.matmul(left, right.T, out=out)
 
 
-def pair_distances(points: np.ndarray | None, matrix: np.ndarray | None,
-                   i: np.ndarray, j: np.ndarray) -> np.ndarray:
+def pair_distances(
+    points: np.ndarray | None, matrix: np.ndarray | None, i: np.ndarray, j: np.ndarray
+) -> np.ndarray:
     """Euclidean (or given) distances of the pairs ``(i[t], j[t])``, by the direct formula.
 
     Parameters
@@ -103,6 +106,8 @@ def pair_distances(points: np.ndarray | None, matrix: np.ndarray | None,
     """
     if matrix is not None:
         return np.asarray(matrix[i, j], dtype=np.float64)
+    if points is None:
+        raise ValueError("give points or matrix")
     out = np.empty(len(i))
     for start in range(0, len(i), _PAIR_CHUNK):
         stop = start + _PAIR_CHUNK

@@ -1,4 +1,4 @@
-"""Distance-preservation measures over pairs of points: stress, Sammon stress, Shepard and latent correlations.
+"""Distance-preservation measures over pairs of points: stress, Sammon stress, Shepard and latent ρ.
 
 Exact over all ``n (n - 1) / 2`` pairs up to a size threshold; above it, from a
 seeded sample of pairs drawn uniformly with replacement from all pairs.  The
@@ -9,8 +9,10 @@ groups and a Student t quantile: it covers the scale fitted inside stress and
 Sammon stress and the re-ranking inside Spearman's correlation without any
 formula per measure, at the cost of 20 re-evaluations on 95% of the sample.
 """
+
 from __future__ import annotations
 
+import functools
 import logging
 from collections.abc import Callable
 
@@ -90,7 +92,7 @@ def _condensed(points: np.ndarray | None, matrix: np.ndarray | None) -> np.ndarr
     if matrix is None:
         return pdist(points)
     n = matrix.shape[0]
-    return np.concatenate([matrix[i, i + 1:] for i in range(n - 1)]).astype(np.float64)
+    return np.concatenate([matrix[i, i + 1 :] for i in range(n - 1)]).astype(np.float64)
 
 
 def _jackknife(statistic: Callable[[np.ndarray], float], n_items: int) -> float:
@@ -107,10 +109,17 @@ def _jackknife(statistic: Callable[[np.ndarray], float], n_items: int) -> float:
     return float(stats.t.ppf(0.975, m - 1) * np.sqrt(var))
 
 
-def global_measures(x_points: np.ndarray | None, x_matrix: np.ndarray | None, y: np.ndarray,
-                    latent: np.ndarray | None, *, pair_sample_above: int, n_pairs: int,
-                    seed: int, memory_bytes: int
-                    ) -> tuple[dict[str, float], dict[str, float]]:
+def global_measures(
+    x_points: np.ndarray | None,
+    x_matrix: np.ndarray | None,
+    y: np.ndarray,
+    latent: np.ndarray | None,
+    *,
+    pair_sample_above: int,
+    n_pairs: int,
+    seed: int,
+    memory_bytes: int,
+) -> tuple[dict[str, float], dict[str, float]]:
     """Stress, Sammon stress, Shepard correlation and (with latent) latent correlation.
 
     Parameters
@@ -156,9 +165,11 @@ def global_measures(x_points: np.ndarray | None, x_matrix: np.ndarray | None, y:
         lat = pair_distances(latent, None, i, j) if latent is not None else None
 
     def measures(mask: np.ndarray | slice) -> dict[str, Callable[[], float]]:
-        out = {"stress": lambda: stress(d[mask], e[mask]),
-               "sammon_stress": lambda: sammon_stress(d[mask], e[mask]),
-               "shepard_spearman": lambda: spearman(d[mask], e[mask], "shepard_spearman")}
+        out = {
+            "stress": lambda: stress(d[mask], e[mask]),
+            "sammon_stress": lambda: sammon_stress(d[mask], e[mask]),
+            "shepard_spearman": lambda: spearman(d[mask], e[mask], "shepard_spearman"),
+        }
         if lat is not None:
             out["latent_spearman"] = lambda: spearman(lat[mask], e[mask], "latent_spearman")
         return out
@@ -167,5 +178,12 @@ def global_measures(x_points: np.ndarray | None, x_matrix: np.ndarray | None, y:
     halfwidths: dict[str, float] = {}
     if not exact:
         for name in values:
-            halfwidths[name] = _jackknife(lambda keep, name=name: measures(keep)[name](), len(d))
+            halfwidths[name] = _jackknife(functools.partial(_one_measure, measures, name), len(d))
     return values, halfwidths
+
+
+def _one_measure(
+    measures: Callable[[np.ndarray], dict[str, Callable[[], float]]], name: str, keep: np.ndarray
+) -> float:
+    """One measure on the pairs ``keep`` selects (a jackknife replicate)."""
+    return measures(keep)[name]()

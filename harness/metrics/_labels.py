@@ -1,4 +1,5 @@
 """Measures that use class labels: k-NN accuracy and silhouette in the embedding."""
+
 from __future__ import annotations
 
 import logging

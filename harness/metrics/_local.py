@@ -18,6 +18,7 @@ Per-point terms, for point ``i`` with ranks ``rho`` (data) and ``r`` (embedding)
 * rnx_auc: ``sum_K R_NX(K) / K / sum_K 1 / K`` for K = 1..K_auc
   (Lee, Peluffo-Ordonez & Verleysen 2015); linear in the per-point overlaps.
 """
+
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
@@ -58,9 +59,10 @@ def _overlaps(rho: np.ndarray) -> np.ndarray:
     """
     b, k = rho.shape
     first_k = np.minimum(np.maximum(rho, np.arange(1, k + 1)), k + 1)
-    hist = np.bincount((first_k + (np.arange(b) * (k + 2))[:, None]).ravel(),
-                       minlength=b * (k + 2)).reshape(b, k + 2)
-    return np.cumsum(hist, axis=1)[:, :k + 1]
+    hist = np.bincount((first_k + (np.arange(b) * (k + 2))[:, None]).ravel(), minlength=b * (k + 2)).reshape(
+        b, k + 2
+    )
+    return np.cumsum(hist, axis=1)[:, : k + 1]
 
 
 def _mrre_norm(n: int, k: int) -> float:
@@ -68,8 +70,9 @@ def _mrre_norm(n: int, k: int) -> float:
     return float(np.sum(np.abs(n - 2 * ell) / ell))
 
 
-def block_terms(block: RankBlock, n: int, ks: Sequence[int], k_auc: int
-                ) -> tuple[dict[str, np.ndarray], np.ndarray]:
+def block_terms(
+    block: RankBlock, n: int, ks: Sequence[int], k_auc: int
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Per-point terms of one block of query points.
 
     Parameters
@@ -104,10 +107,10 @@ def block_terms(block: RankBlock, n: int, ks: Sequence[int], k_auc: int
         terms[f"mrre_embedding@{k}"] = (np.abs(rho[:, :k] - pos) / pos).sum(axis=1) / h
         terms[f"lcmc@{k}"] = overlap[:, k] / k - k / (n - 1.0)
     big_k = np.arange(1, k_auc + 1)
-    q = overlap[:, 1:k_auc + 1] / big_k
+    q = overlap[:, 1 : k_auc + 1] / big_k
     rnx = ((n - 1.0) * q - big_k) / (n - 1.0 - big_k)
     terms["rnx_auc"] = (rnx / big_k).sum(axis=1) / np.sum(1.0 / big_k)
-    return terms, overlap[:, 1:k_auc + 1]
+    return terms, overlap[:, 1 : k_auc + 1]
 
 
 def collect(blocks: Iterable[RankBlock], n: int, ks: Sequence[int], k_auc: int) -> LocalTerms:

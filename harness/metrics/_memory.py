@@ -19,6 +19,7 @@ Block-size formula
     ``MAX_BLOCK_BYTES`` keeps very long rows (n in the millions) from taking
     gigabytes for no gain; the budget only ever lowers the result.
 """
+
 from __future__ import annotations
 
 import logging
@@ -49,6 +50,7 @@ def available_bytes() -> int:
     """Memory available to this process now, in bytes (psutil, else ``os.sysconf``)."""
     try:
         import psutil
+
         return int(psutil.virtual_memory().available)
     except ImportError:  # psutil is optional: fall back to the POSIX counters
         return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
@@ -86,8 +88,12 @@ def block_rows(n: int, n_queries: int, memory_bytes: int, fixed_bytes: int) -> i
     work = memory_bytes - fixed_bytes - _scratch_bytes(n)
     rows = max(min(work, MAX_BLOCK_BYTES) // per_row, min(MIN_BLOCK_ROWS, work // per_row))
     if rows < 1:
-        log.warning("memory budget of %d bytes is below one block row (%d bytes plus %d fixed); "
-                    "using one row per block", memory_bytes, per_row, fixed_bytes)
+        log.warning(
+            "memory budget of %d bytes is below one block row (%d bytes plus %d fixed); "
+            "using one row per block",
+            memory_bytes,
+            per_row,
+            fixed_bytes,
+        )
         rows = 1
     return int(max(1, min(rows, MAX_BLOCK_ROWS, n_queries)))
-

@@ -47,6 +47,7 @@ Threads
     and made the ranking passes that follow it about three times slower; one
     BLAS thread per lane avoids that and keeps both cores busy.
 """
+
 from __future__ import annotations
 
 import os
@@ -87,10 +88,10 @@ def _padded(n: int) -> int:
 class _Head:
     """The exactly ordered head of each row of a sub-block."""
 
-    dist: np.ndarray        # (b, n) float64, query entry set to -inf
-    low: np.ndarray         # (b, n) float32 rounding of dist
-    cols: np.ndarray        # (b, w) candidate columns in (distance, index) order, padded with n
-    count: np.ndarray       # (b,) candidates per row (the query included, at position 0)
+    dist: np.ndarray  # (b, n) float64, query entry set to -inf
+    low: np.ndarray  # (b, n) float32 rounding of dist
+    cols: np.ndarray  # (b, w) candidate columns in (distance, index) order, padded with n
+    count: np.ndarray  # (b,) candidates per row (the query included, at position 0)
 
 
 def _head(dist: np.ndarray, rows: np.ndarray, k: int, low: np.ndarray) -> _Head:
@@ -100,11 +101,11 @@ def _head(dist: np.ndarray, rows: np.ndarray, k: int, low: np.ndarray) -> _Head:
         np.copyto(low, dist, casting="same_kind")  # overflow to inf keeps the order
     g = max(1, min(MAX_GROUP, n // (4 * (k + 1))))
     m = n // g
-    mins = low[:, :g * m].reshape(b, g, m).min(axis=1)
+    mins = low[:, : g * m].reshape(b, g, m).min(axis=1)
     if g * m < n:
-        mins = np.concatenate([mins, low[:, g * m:]], axis=1)
+        mins = np.concatenate([mins, low[:, g * m :]], axis=1)
     # Each group minimum is a distinct point, so >= k+1 points lie at or below t.
-    t = np.partition(mins, k, axis=1)[:, k:k + 1]
+    t = np.partition(mins, k, axis=1)[:, k : k + 1]
     cand = np.flatnonzero(low <= t)
     crow = cand // n
     ccol = cand - crow * n
@@ -160,26 +161,26 @@ def _count_ranks(head: _Head, qrow: np.ndarray, qcol: np.ndarray, masks: np.ndar
     step = masks.shape[1]
     mask = masks[:b]
     for s in range(0, width, step):
-        part = table[:, s:s + step, None]
+        part = table[:, s : s + step, None]
         c = part.shape[1]
         view = mask[:, :c]
         np.less(low[:, None, :], part, out=view[:, :, :n])
-        below[:, s:s + c] = _count_true(view)
+        below[:, s : s + c] = _count_true(view)
         np.less_equal(low[:, None, :], part, out=view[:, :, :n])
-        upto[:, s:s + c] = _count_true(view)
+        upto[:, s : s + c] = _count_true(view)
     lt = below[qrow, slot]
     ranks = lt.copy()  # the query (-inf) stands in for the "1 +" of the rank
     # The point itself is always in upto - below; anything more shares its
     # float32 value and is resolved with the float64 distances.
     for t in np.flatnonzero(upto[qrow, slot] - lt > 1):
         row = dist[qrow[t]]
-        ranks[t] = (np.count_nonzero(row < value[t])
-                    + np.count_nonzero(row[:qcol[t]] == value[t]))
+        ranks[t] = np.count_nonzero(row < value[t]) + np.count_nonzero(row[: qcol[t]] == value[t])
     return ranks
 
 
-def _cross_ranks(head: _Head, other: np.ndarray, exact: int, where: np.ndarray,
-                 masks: np.ndarray) -> np.ndarray:
+def _cross_ranks(
+    head: _Head, other: np.ndarray, exact: int, where: np.ndarray, masks: np.ndarray
+) -> np.ndarray:
     """Ranks, in ``head``'s space, of the points listed in ``other`` (b, K).
 
     Columns ``< exact`` are exact; later columns hold ``min(rank, K + 1)``.
@@ -256,8 +257,15 @@ class RankWalk:
         ``min(rank, K + 1)``.  Default ``K`` (all exact).
     """
 
-    def __init__(self, data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, k: int,
-                 block_rows: int, exact: int | None = None) -> None:
+    def __init__(
+        self,
+        data: DistanceRows,
+        embedding: DistanceRows,
+        queries: np.ndarray,
+        k: int,
+        block_rows: int,
+        exact: int | None = None,
+    ) -> None:
         self.data, self.embedding, self.queries = data, embedding, queries
         self.k, self.block_rows = k, block_rows
         self.exact = k if exact is None else max(0, min(k, exact))
@@ -266,16 +274,18 @@ class RankWalk:
         """The same walk with exact ranks only in the first ``columns`` columns."""
         return RankWalk(self.data, self.embedding, self.queries, self.k, self.block_rows, columns)
 
-    def _sub_block(self, dx: np.ndarray, dy: np.ndarray, part: np.ndarray,
-                   scratch: _Scratch) -> RankBlock:
+    def _sub_block(self, dx: np.ndarray, dy: np.ndarray, part: np.ndarray, scratch: _Scratch) -> RankBlock:
         b = len(part)
         hx = _head(dx, part, self.k, scratch.low_x[:b])
         hy = _head(dy, part, self.k, scratch.low_y[:b])
-        nx = hx.cols[:, 1:self.k + 1]
-        ny = hy.cols[:, 1:self.k + 1]
+        nx = hx.cols[:, 1 : self.k + 1]
+        ny = hy.cols[:, 1 : self.k + 1]
         where = scratch.where[:b]
-        return RankBlock(part, _cross_ranks(hx, ny, self.exact, where, scratch.masks),
-                        _cross_ranks(hy, nx, self.exact, where, scratch.masks))
+        return RankBlock(
+            part,
+            _cross_ranks(hx, ny, self.exact, where, scratch.masks),
+            _cross_ranks(hy, nx, self.exact, where, scratch.masks),
+        )
 
     def __iter__(self) -> Iterator[RankBlock]:
         step = self.block_rows
@@ -292,7 +302,9 @@ class RankWalk:
         # spins against the ranking passes (which made them ~3x slower).
         with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(lanes) as pool:
             for i in range(0, len(starts), lanes):
-                futures = [pool.submit(lane.rank, start) for lane, start in zip(workers, starts[i:i + lanes])]
+                futures = [
+                    pool.submit(lane.rank, start) for lane, start in zip(workers, starts[i : i + lanes])
+                ]
                 for future in futures:
                     yield from future.result()
 
@@ -317,15 +329,18 @@ class _Lane:
     def rank(self, start: int) -> list[RankBlock]:
         """Rank tables of the block of queries starting at position ``start``."""
         walk, sub = self.walk, self.sub
-        rows = np.asarray(walk.queries[start:start + walk.block_rows], dtype=np.intp)
-        dx = walk.data.block(rows, out=self.data_buf[:len(rows)])
-        dy = walk.embedding.block(rows, out=self.emb_buf[:len(rows)])
-        return [walk._sub_block(dx[s:s + sub], dy[s:s + sub], rows[s:s + sub], self.scratch)
-                for s in range(0, len(rows), sub)]
+        rows = np.asarray(walk.queries[start : start + walk.block_rows], dtype=np.intp)
+        dx = walk.data.block(rows, out=self.data_buf[: len(rows)])
+        dy = walk.embedding.block(rows, out=self.emb_buf[: len(rows)])
+        return [
+            walk._sub_block(dx[s : s + sub], dy[s : s + sub], rows[s : s + sub], self.scratch)
+            for s in range(0, len(rows), sub)
+        ]
 
 
-def rank_blocks(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, k: int,
-                block_rows: int) -> RankWalk:
+def rank_blocks(
+    data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, k: int, block_rows: int
+) -> RankWalk:
     """Walk the query points in blocks and yield their cross-space rank tables.
 
     Parameters

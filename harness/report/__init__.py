@@ -2,24 +2,36 @@
 
 :func:`write_report` is the entry point; the pieces live in small modules:
 ``analysis`` (the numbers), ``figures`` (PNG), ``verdict`` (sentences),
-``paper`` (``tables.md`` / ``tables.tex``), ``page`` (``report.html``) and
-``tables`` (Markdown and LaTeX table helpers).
+``paper`` (``tables.md`` / ``tables.tex``), ``page`` (``report.html`` from
+``templates/``) and ``tables`` (Markdown and LaTeX measure tables).  A report
+reads a run folder; it never runs anything.
 """
+
 from __future__ import annotations
 
 import logging
 from pathlib import Path
 
-from .tables import markdown_table, ranking_markdown
+from ..config import foldbench_version
+from ..datasets import Dataset
+from ..errors import InputError
+from ..run.folder import RunFolder
+from ..suite import load_datasets
 
 log = logging.getLogger(__name__)
 
 #: Figure files of a report, under ``<run>/figures/``.
-FIGURES = {"embeddings": "embeddings.png", "heatmaps": "heatmaps.png", "rnx": "rnx_curves.png",
-           "shepard": "shepard.png", "cd": "critical_difference.png", "pareto": "quality_vs_time.png"}
+FIGURES = {
+    "embeddings": "embeddings.png",
+    "heatmaps": "heatmaps.png",
+    "rnx": "rnx_curves.png",
+    "shepard": "shepard.png",
+    "cd": "critical_difference.png",
+    "pareto": "quality_vs_time.png",
+}
 
 
-def write_report(run_dir: str | Path, *, quality: str = "mean_rank", alpha: float = 0.05) -> Path:
+def write_report(run_dir: str | Path | RunFolder, *, quality: str = "mean_rank", alpha: float = 0.05) -> Path:
     """Write the report of a run folder and return the path of ``report.html``.
 
     Writes into the run folder ``report.html`` (self-contained: images embedded),
@@ -27,7 +39,7 @@ def write_report(run_dir: str | Path, *, quality: str = "mean_rank", alpha: floa
 
     Parameters
     ----------
-    run_dir : str or Path
+    run_dir : str, Path or RunFolder
         A run folder written by ``foldbench run``.
     quality : str
         Quality axis of the Pareto front: ``mean_rank`` or a measure column
@@ -40,17 +52,16 @@ def write_report(run_dir: str | Path, *, quality: str = "mean_rank", alpha: floa
     Path
         ``<run_dir>/report.html``.
     """
-    from .. import store
     from . import figures as fig
     from .analysis import analyse
     from .page import render
     from .paper import tables_latex, tables_markdown
     from .verdict import verdict
 
-    run_dir = Path(run_dir)
-    analysis = analyse(run_dir, quality=quality, alpha=alpha)
-    datasets = _datasets(analysis)
-    out = run_dir / "figures"
+    folder = run_dir if isinstance(run_dir, RunFolder) else RunFolder.open(run_dir)
+    analysis = analyse(folder, quality=quality, alpha=alpha)
+    datasets = _datasets(folder, analysis.notes)
+    out = folder.path / "figures"
     drawn = {
         "embeddings": fig.embedding_grid(analysis, datasets, out / FIGURES["embeddings"]),
         "heatmaps": fig.heatmaps(analysis, out / FIGURES["heatmaps"]),
@@ -59,39 +70,36 @@ def write_report(run_dir: str | Path, *, quality: str = "mean_rank", alpha: floa
         "cd": fig.critical_difference_diagram(analysis, out / FIGURES["cd"]),
         "pareto": fig.quality_vs_time(analysis, out / FIGURES["pareto"]),
     }
-    store.write_text(run_dir / "tables.md", tables_markdown(analysis))
-    store.write_text(run_dir / "tables.tex", tables_latex(analysis))
-    page = run_dir / "report.html"
-    store.write_text(page, render(analysis, verdict(analysis), drawn))
+    folder.write_text("tables.md", tables_markdown(analysis))
+    folder.write_text("tables.tex", tables_latex(analysis))
+    page = folder.write_text("report.html", render(analysis, verdict(analysis), drawn, foldbench_version()))
     log.info("report written to %s", page)
     return page
 
 
-def _datasets(analysis):
+def _datasets(folder: RunFolder, notes: list[str]) -> dict[str, Dataset]:
     """The run's datasets reloaded for colours and Shepard diagrams; ``{}`` when they cannot be.
 
     A dataset whose fingerprint differs from the one recorded at run time is left
     out (its rows would not match the stored embeddings), with a note.
     """
-    from ..errors import InputError
-    from ..suite import load_datasets
-
     try:
-        loaded = load_datasets(analysis.run.suite)
+        loaded = load_datasets(folder.suite)
     except (InputError, OSError) as exc:
-        analysis.notes.append(f"The data could not be loaded again ({exc}); figures that need it are "
-                              "left out.")
+        notes.append(f"The data could not be loaded again ({exc}); figures that need it are left out.")
         return {}
-    recorded = analysis.run.manifest.get("datasets", {})
+    recorded = folder.manifest.get("datasets", {})
     keep = {}
     for name, ds in loaded.items():
         fp = recorded.get(name, {}).get("fingerprint")
         if fp is not None and fp != ds.fingerprint():
-            analysis.notes.append(f"Dataset {name} has changed since the run (fingerprint differs); it is "
-                                  "left out of the figures that need the data.")
+            notes.append(
+                f"Dataset {name} has changed since the run (fingerprint differs); it is left out of the "
+                "figures that need the data."
+            )
             continue
         keep[name] = ds
     return keep
 
 
-__all__ = ["FIGURES", "markdown_table", "ranking_markdown", "write_report"]
+__all__ = ["FIGURES", "write_report"]

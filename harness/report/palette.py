@@ -1,5 +1,8 @@
 """foldbench's own colours: deep teal, ochre and slate on warm paper."""
+
 from __future__ import annotations
+
+from typing import Any
 
 from matplotlib.colors import LinearSegmentedColormap
 
@@ -15,8 +18,20 @@ SAND = "#e9dfc6"
 MIST = "#d5dde3"
 
 #: Categorical colours (labels, methods), in order of use.
-CATEGORICAL = (TEAL, OCHRE, SLATE, BRICK, MOSS, PLUM, "#3f9aa3", "#e0b95a", "#93a3b5", "#c97e5c",
-               "#9bb06a", "#a5809f")
+CATEGORICAL = (
+    TEAL,
+    OCHRE,
+    SLATE,
+    BRICK,
+    MOSS,
+    PLUM,
+    "#3f9aa3",
+    "#e0b95a",
+    "#93a3b5",
+    "#c97e5c",
+    "#9bb06a",
+    "#a5809f",
+)
 
 #: Sequential map for "better is darker teal"; reversed for measures where lower is better.
 QUALITY_MAP = LinearSegmentedColormap.from_list("foldbench_quality", ["#fbf5e6", "#e3cf9a", "#7fb0a8", TEAL])
@@ -30,7 +45,7 @@ def category_colours(n: int) -> list[str]:
     return [CATEGORICAL[i % len(CATEGORICAL)] for i in range(n)]
 
 
-def style() -> dict[str, object]:
+def style() -> dict[Any, Any]:
     """Matplotlib settings of every foldbench figure."""
     return {
         "figure.facecolor": PAPER,

@@ -1,25 +1,23 @@
 """The verdict: which method to pick for which dataset, in plain sentences made from the numbers."""
+
 from __future__ import annotations
 
 import math
 
 import pandas as pd
 
-from ..metrics import MEASURES
-from ..rank import stem
+from ..metrics import MEASURES, measure_stem
+from ..text import seconds
 from .analysis import Analysis
 
-_STRENGTH = {"local": "keeps neighbourhoods best", "global": "keeps pairwise distances best",
-             "labels": "separates the labelled classes best", "latent": "recovers the hidden coordinates best"}
+_STRENGTH = {
+    "local": "keeps neighbourhoods best",
+    "global": "keeps pairwise distances best",
+    "labels": "separates the labelled classes best",
+    "latent": "recovers the hidden coordinates best",
+}
 #: A speed-up below this is not worth a sentence.
 _WORTH_SAYING = 2.0
-
-
-def seconds(value: float) -> str:
-    """Fit time for a sentence: ``0.012 s``, ``3.4 s``, ``120 s``."""
-    if value is None or not math.isfinite(value):
-        return "?"
-    return f"{value:.2g} s" if value < 100 else f"{value:.0f} s"
 
 
 def value_sd(row: pd.Series, column: str, digits: int = 2) -> str:
@@ -41,29 +39,35 @@ def dataset_sentence(analysis: Analysis, dataset: str) -> str | None:
     best = t.iloc[0]
     cols = [c for c in analysis.rank_by if c in t and pd.notna(best.get(c))]
     won = [c for c in cols if best.get(f"rank_{c}") == t[f"rank_{c}"].min()] if cols else []
-    name = _name(analysis, best["method"])
+    name = analysis.label(best["method"])
     if won:
-        scope = MEASURES[stem(won[0])].scope
+        scope = MEASURES[measure_stem(won[0])].scope
         why = f"{_STRENGTH.get(scope, 'scores best')} ({won[0]} {value_sd(best, won[0])})"
     elif cols:
         why = f"is the best compromise ({cols[0]} {value_sd(best, cols[0])})"
     else:
         why = "ranks first"
-    text = (f"On {dataset}, pick {name}: it {why} and leads the ranking "
-            f"(mean rank {best['mean_rank']:.1f} among {len(t)} methods over {len(cols)} ranked measures).")
+    text = (
+        f"On {dataset}, pick {name}: it {why} and leads the ranking "
+        f"(mean rank {best['mean_rank']:.1f} among {len(t)} methods over {len(cols)} ranked measures)."
+    )
     if len(t) > 1:
         second = t.iloc[1]
         if second["mean_rank"] == best["mean_rank"]:
-            text += f" {_name(analysis, second['method'])} ties with it."
+            text += f" {analysis.label(second['method'])} ties with it."
     fast = t.dropna(subset=["fit_seconds"]).sort_values("fit_seconds", kind="stable")
     if not fast.empty and pd.notna(best.get("fit_seconds")):
         quick = fast.iloc[0]
         ratio = best["fit_seconds"] / max(quick["fit_seconds"], 1e-9)
         if quick["method"] != best["method"] and ratio >= _WORTH_SAYING:
             head = cols[0] if cols else None
-            cost = f" but reaches {head} {value_sd(quick, head)}" if head and pd.notna(quick.get(head)) else ""
-            text += (f" {_name(analysis, quick['method'])} is {ratio:.0f}× faster "
-                     f"({seconds(quick['fit_seconds'])} vs {seconds(best['fit_seconds'])}){cost}.")
+            cost = (
+                f" but reaches {head} {value_sd(quick, head)}" if head and pd.notna(quick.get(head)) else ""
+            )
+            text += (
+                f" {analysis.label(quick['method'])} is {ratio:.0f}× faster "
+                f"({seconds(quick['fit_seconds'])} vs {seconds(best['fit_seconds'])}){cost}."
+            )
         elif quick["method"] == best["method"]:
             text += f" It is also the fastest here ({seconds(best['fit_seconds'])})."
     return text
@@ -76,22 +80,31 @@ def overall_sentence(analysis: Analysis) -> str | None:
         return None
     top = o.iloc[0]
     n_ds = len(analysis.run.suite.datasets)
-    text = (f"Across {n_ds} dataset{'s' if n_ds != 1 else ''}, {_name(analysis, top['method'])} has the "
-            f"best mean rank ({top['mean_rank']:.2f}).")
+    text = (
+        f"Across {n_ds} dataset{'s' if n_ds != 1 else ''}, {analysis.label(top['method'])} has the "
+        f"best mean rank ({top['mean_rank']:.2f})."
+    )
     f = analysis.friedman
     if f is None or analysis.cd is None:
         return text + " Too few datasets or methods for a test of significance, so treat the order as a hint."
     names = analysis.friedman_methods
     best_i = int(min(range(len(names)), key=lambda i: f.mean_ranks[i]))
-    near = [names[i] for i in range(len(names))
-            if i != best_i and f.mean_ranks[i] - f.mean_ranks[best_i] < analysis.cd]
+    near = [
+        names[i]
+        for i in range(len(names))
+        if i != best_i and f.mean_ranks[i] - f.mean_ranks[best_i] < analysis.cd
+    ]
     verdict = "finds" if f.pvalue < analysis.alpha else "does not find"
-    text += (f" The Friedman test {verdict} a difference among the {f.n_treatments} methods "
-             f"(χ² = {f.statistic:.2f}, p = {f.pvalue:.3g}, {f.n_blocks} datasets)")
+    text += (
+        f" The Friedman test {verdict} a difference among the {f.n_treatments} methods "
+        f"(χ² = {f.statistic:.2f}, p = {f.pvalue:.3g}, {f.n_blocks} datasets)"
+    )
     if near:
-        text += (f"; {', '.join(_name(analysis, m) for m in near)} "
-                 f"{'is' if len(near) == 1 else 'are'} within the critical difference "
-                 f"({analysis.cd:.2f}) of {_name(analysis, names[best_i])} and cannot be told apart from it.")
+        text += (
+            f"; {', '.join(analysis.label(m) for m in near)} "
+            f"{'is' if len(near) == 1 else 'are'} within the critical difference "
+            f"({analysis.cd:.2f}) of {analysis.label(names[best_i])} and cannot be told apart from it."
+        )
     else:
         text += f"; every other method is more than the critical difference ({analysis.cd:.2f}) behind."
     return text
@@ -105,7 +118,3 @@ def verdict(analysis: Analysis) -> list[str]:
         if s:
             out.append(s)
     return out
-
-
-def _name(analysis: Analysis, method: str) -> str:
-    return f"{method} (tuned)" if method in analysis.gridded_methods else method

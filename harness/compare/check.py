@@ -7,9 +7,9 @@ than the measure's tolerance *and* unlikely to be seed noise (one-sided Welch
 t-test over seeds at ``alpha``).  With a single seed on either side no noise
 test is possible and the tolerance alone decides; the outcome says so.
 """
+
 from __future__ import annotations
 
-import json
 import logging
 import math
 from collections.abc import Mapping
@@ -23,20 +23,38 @@ import pandas as pd
 import yaml
 from scipy import stats
 
-from . import store
-from .errors import InputError
-from .expect import alpha_of, parse_tolerances, resolve_tolerance
-from .rank import CONFIG, higher_is_better, measure_columns
+from ..config import CellStatus, is_failure
+from ..errors import InputError
+from ..metrics import higher_is_better
+from ..run.atomic import write_text
+from ..run.folder import RunFolder
+from ..suite.tolerances import alpha_of, parse_tolerances, resolve_tolerance
+from ..text import seed_range
+from .aggregate import CONFIG, measure_columns
+from .environment import environment_changes
 
 log = logging.getLogger(__name__)
 
 VERDICTS = ("regression", "improvement", "unchanged", "within noise", "new", "missing")
-COLUMNS = ["dataset", "method", "params", "measure", "baseline_mean", "current_mean", "difference",
-           "tolerance", "p_value", "verdict", "baseline_seeds", "current_seeds", "gated"]
-_ARROW = "→"
+COLUMNS = [
+    "dataset",
+    "method",
+    "params",
+    "measure",
+    "baseline_mean",
+    "current_mean",
+    "difference",
+    "tolerance",
+    "p_value",
+    "verdict",
+    "baseline_seeds",
+    "current_seeds",
+    "gated",
+]
 
 
 # ---------------------------------------------------------------- statistics
+
 
 @dataclass(frozen=True)
 class WelchResult:
@@ -89,165 +107,34 @@ def welch_test(current: np.ndarray, baseline: np.ndarray, higher_is_better: bool
             return WelchResult(0.0, math.nan, 0.5)
         return WelchResult(math.copysign(math.inf, diff), math.nan, 0.0 if worse > 0 else 1.0)
     t = diff / math.sqrt(se2)
-    df = se2 ** 2 / (vc ** 2 / (len(c) - 1) + vb ** 2 / (len(b) - 1))
+    df = se2**2 / (vc**2 / (len(c) - 1) + vb**2 / (len(b) - 1))
     p = stats.t.cdf(t, df) if higher_is_better else stats.t.sf(t, df)
     return WelchResult(float(t), float(df), float(p))
 
 
-# ---------------------------------------------------------------- reading run folders
+def _tolerances(folder: RunFolder) -> dict[str, Any]:
+    """The ``tolerances`` block of the suite a folder was run from (none when it keeps no suite).
 
-@dataclass
-class RunFolder:
-    """A run folder read for comparing: its manifest, scores and the suite's tolerances."""
-
-    path: Path
-    manifest: dict[str, Any]
-    scores: pd.DataFrame
-    tolerances: dict[str, Any]
-
-
-def read_run_folder(path: str | Path, role: str) -> RunFolder:
-    """Read a run folder for comparing, with one-line errors that name it.
-
-    Parameters
-    ----------
-    path : str or Path
-        The folder: ``manifest.json`` and either ``cells/`` or ``scores.csv``
-        (``suite.yaml`` optional, for its tolerances).
-    role : str
-        What the folder is (``baseline folder``), used in messages.
-
-    Returns
-    -------
-    RunFolder
+    Only that block is read: a baseline may keep a trimmed ``suite.yaml``.
     """
-    folder = Path(path)
-    where = f"{role} {folder}"
-    if not folder.is_dir():
-        raise InputError(where, "no such folder; expected a run folder made by 'foldbench run'")
-    path = folder / "manifest.json"
-    if not path.is_file():
-        raise InputError(where, "no manifest.json; expected a run folder made by 'foldbench run' "
-                                "(manifest.json and cells/ or scores.csv)")
-    try:
-        manifest = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:
-        raise InputError(f"{where}/manifest.json", f"expected readable JSON ({_one_line(exc)})") from None
-    if not isinstance(manifest, dict):
-        raise InputError(where, "manifest.json is not a JSON object; expected the manifest of 'foldbench run'")
-    return RunFolder(folder, manifest, _read_scores(folder, where), _suite_tolerances(folder, where))
-
-
-def _read_scores(folder: Path, where: str) -> pd.DataFrame:
-    records = store.read_cell_records(folder)
-    if records:
-        try:
-            return store.scores_frame(records)
-        except (KeyError, TypeError, ValueError) as exc:
-            raise InputError(where, f"cells/*.json are not cell records ({_one_line(exc)})") from None
-    csv = folder / "scores.csv"
-    if not csv.exists():
-        raise InputError(where, "no finished cells (cells/*.json) and no scores.csv; expected a finished run")
-    try:
-        scores = pd.read_csv(csv, dtype={"params": str, "dataset": str, "method": str})
-    except (OSError, ValueError, pd.errors.ParserError) as exc:
-        raise InputError(f"{where}/scores.csv", f"expected a readable CSV table ({_one_line(exc)})") from None
-    missing = [c for c in (*CONFIG, "seed", "status") if c not in scores]
-    if missing:
-        raise InputError(f"{where}/scores.csv", f"expected columns {', '.join((*CONFIG, 'seed', 'status'))}; "
-                                                f"missing {', '.join(missing)}")
-    return scores
-
-
-def _one_line(exc: BaseException) -> str:
-    text = " ".join(str(exc).split())
-    return f"{exc.__class__.__name__}: {text[:200]}"
-
-
-def _suite_tolerances(folder: Path, where: str) -> dict[str, Any]:
-    path = folder / "suite.yaml"
-    if not path.exists():
+    if not folder.has_suite:
         return {}
+    path = folder.path / "suite.yaml"
     try:
         doc = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except (OSError, yaml.YAMLError) as exc:
-        raise InputError(f"{where}/suite.yaml", f"expected the suite as run ({exc.__class__.__name__})") from None
+    except (OSError, UnicodeDecodeError, yaml.YAMLError) as exc:
+        raise InputError(
+            f"{folder.where}/suite.yaml", f"expected the suite as run ({type(exc).__name__})"
+        ) from None
     raw = doc.get("tolerances") if isinstance(doc, Mapping) else None
     try:
         return parse_tolerances(raw, "tolerances")
     except InputError as err:
-        raise InputError(f"{where}/suite.yaml: {err.where}", err.expected) from None
-
-
-# ---------------------------------------------------------------- environment
-
-def environment_changes(baseline: Mapping[str, Any], current: Mapping[str, Any]) -> list[str]:
-    """What differs between two run manifests, as lines like ``scikit-learn 1.8.0 → 1.9.1``.
-
-    Covers Python, OS, CPU, package versions (plug-ins' too), plug-in sources,
-    BLAS libraries and thread counts, thread environment variables, git
-    commit, suite hash, seeds and dataset fingerprints.
-    """
-    env_b, env_c = baseline.get("environment") or {}, current.get("environment") or {}
-    out: list[str] = []
-
-    def note(label: str, old: Any, new: Any) -> None:
-        if old != new:
-            out.append(f"{label} {_text(old)} {_ARROW} {_text(new)}")
-
-    for key, label in (("python", "Python"), ("implementation", "Python implementation"),
-                       ("platform", "OS"), ("machine", "machine"), ("cpu_model", "CPU"),
-                       ("cpu_count", "CPU count"), ("git_commit", "git commit")):
-        note(label, env_b.get(key), env_c.get(key))
-    for label, old, new in _paired(env_b.get("packages") or {}, env_c.get("packages") or {}):
-        note(label, old, new)
-    for label, old, new in _paired(env_b.get("thread_env") or {}, env_c.get("thread_env") or {}):
-        note(label, old, new)
-    plug_b, plug_c = env_b.get("plugins") or {}, env_c.get("plugins") or {}
-    for label, old, new in _paired({k: (v or {}).get("sha256") for k, v in plug_b.items()},
-                                   {k: (v or {}).get("sha256") for k, v in plug_c.items()}):
-        note(f"plug-in {label} source", old, new)
-    for label, old, new in _paired(_blas(env_b.get("blas")), _blas(env_c.get("blas"))):
-        note(label, old, new)
-    note("suite hash", (baseline.get("suite") or {}).get("hash"), (current.get("suite") or {}).get("hash"))
-    note("seeds", _seed_text(baseline.get("seeds")), _seed_text(current.get("seeds")))
-    fp_b = {k: (v or {}).get("fingerprint") for k, v in (baseline.get("datasets") or {}).items()}
-    fp_c = {k: (v or {}).get("fingerprint") for k, v in (current.get("datasets") or {}).items()}
-    for name, old, new in _paired(fp_b, fp_c):
-        note(f"dataset {name} fingerprint", old, new)
-    return out
-
-
-def _paired(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[tuple[str, Any, Any]]:
-    return [(k, old.get(k), new.get(k)) for k in dict.fromkeys([*old, *new])]
-
-
-def _blas(libs: Any) -> dict[str, Any]:
-    out: dict[str, Any] = {}
-    for lib in libs or []:
-        name = lib.get("internal_api") or lib.get("user_api") or "library"
-        out[name] = lib.get("version")
-        out[f"{name} threads"] = lib.get("num_threads")
-        for extra in ("threading_layer", "architecture"):
-            if lib.get(extra) is not None:
-                out[f"{name} {extra.replace('_', ' ')}"] = lib[extra]
-    return out
-
-
-def _seed_text(seeds: Any) -> str | None:
-    if not seeds:
-        return None
-    seeds = list(seeds)
-    if seeds == list(range(seeds[0], seeds[0] + len(seeds))) and len(seeds) > 2:
-        return f"{seeds[0]}-{seeds[-1]}"
-    return ",".join(map(str, seeds))
-
-
-def _text(value: Any) -> str:
-    return "(none)" if value is None else str(value)
+        raise InputError(f"{folder.where}/suite.yaml: {err.where}", err.expected) from None
 
 
 # ---------------------------------------------------------------- the verdict
+
 
 @dataclass
 class CheckOutcome:
@@ -293,8 +180,13 @@ class CheckOutcome:
         return {v: int(found.get(v, 0)) for v in VERDICTS}
 
 
-def check_runs(current: str | Path, baseline: str | Path, *, tolerances: Mapping[str, Any] | None = None,
-               alpha: float | None = None) -> CheckOutcome:
+def check_runs(
+    current: str | Path,
+    baseline: str | Path,
+    *,
+    tolerances: Mapping[str, Any] | None = None,
+    alpha: float | None = None,
+) -> CheckOutcome:
     """Compare a finished run with a baseline run and decide whether it regressed.
 
     Parameters
@@ -321,27 +213,36 @@ def check_runs(current: str | Path, baseline: str | Path, *, tolerances: Mapping
     InputError
         When a folder is missing or is not a readable run folder.
     """
-    cur = read_run_folder(current, "run folder")
-    base = read_run_folder(baseline, "baseline folder")
-    entries = dict(cur.tolerances)
+    cur = RunFolder.open(current, "run folder")
+    base = RunFolder.open(baseline, "baseline folder")
+    entries = _tolerances(cur)
     entries.update(parse_tolerances(tolerances, "tolerances") if tolerances is not None else {})
     level = alpha_of(entries) if alpha is None else float(alpha)
     if not 0 < level < 1:
         raise InputError("alpha", f"expected a significance level between 0 and 1, got {alpha}")
     table, single = _compare(cur.scores, base.scores, entries, level)
     passed = not ((table["verdict"] == "regression") & table["gated"]).any()
-    outcome = CheckOutcome(table, bool(passed), environment_changes(base.manifest, cur.manifest),
-                           _notes(cur, base, table, single, level), cur.path, base.path, level)
+    outcome = CheckOutcome(
+        table,
+        bool(passed),
+        environment_changes(base.manifest, cur.manifest),
+        _notes(cur, base, table, single, level),
+        cur.path,
+        base.path,
+        level,
+    )
     log.info("check %s against %s: %s", cur.path, base.path, "passed" if passed else "regressed")
     return outcome
 
 
-def _compare(cur: pd.DataFrame, base: pd.DataFrame, entries: Mapping[str, Any], alpha: float
-             ) -> tuple[pd.DataFrame, int]:
+def _compare(
+    cur: pd.DataFrame, base: pd.DataFrame, entries: Mapping[str, Any], alpha: float
+) -> tuple[pd.DataFrame, int]:
     cols_c, cols_b = measure_columns(cur), measure_columns(base)
     columns = list(dict.fromkeys([*cols_b, *cols_c]))
-    groups_c = {k: g for k, g in cur.groupby(CONFIG, sort=False)}
-    groups_b = {k: g for k, g in base.groupby(CONFIG, sort=False)}
+    # iter(): a GroupBy has a .keys attribute, which would make dict() read it as a mapping
+    groups_c = dict(iter(cur.groupby(CONFIG, sort=False)))
+    groups_b = dict(iter(base.groupby(CONFIG, sort=False)))
     rows = []
     single = 0
     for config in dict.fromkeys([*groups_b, *groups_c]):
@@ -352,26 +253,32 @@ def _compare(cur: pd.DataFrame, base: pd.DataFrame, entries: Mapping[str, Any], 
             if vb is None and vc is None:
                 continue
             tol = resolve_tolerance(column, entries)
-            row = dict(zip(CONFIG, config), measure=column,
-                       baseline_mean=_mean(vb), current_mean=_mean(vc),
-                       baseline_seeds=0 if vb is None else len(vb),
-                       current_seeds=0 if vc is None else len(vc),
-                       gated=bool(tol.gate), p_value=math.nan,
-                       tolerance=math.nan if vb is None else tol.allowance(_mean(vb)))
+            row: dict[str, Any] = dict(
+                zip(CONFIG, config),
+                measure=column,
+                baseline_mean=_mean(vb),
+                current_mean=_mean(vc),
+                baseline_seeds=0 if vb is None else len(vb),
+                current_seeds=0 if vc is None else len(vc),
+                gated=bool(tol.gate),
+                p_value=math.nan,
+                tolerance=math.nan if vb is None else tol.allowance(_mean(vb)),
+            )
             row["difference"] = row["current_mean"] - row["baseline_mean"]
             if vb is None:
                 row["verdict"] = "new"
             elif vc is None:
                 # A configuration still in the run whose seeds all failed is worse, not gone.
-                failed = gc is not None and (~gc["status"].isin(["ok", "skipped"])).any()
+                failed = gc is not None and gc["status"].map(is_failure).any()
                 row["verdict"] = "regression" if failed else "missing"
             else:
                 if len(vb) < 2 or len(vc) < 2:
                     single += 1
                 else:
                     row["p_value"] = welch_test(vc, vb, higher_is_better(column)).p_worse
-                row["verdict"] = _verdict(row["difference"], row["tolerance"], row["p_value"],
-                                          higher_is_better(column), alpha)
+                row["verdict"] = _verdict(
+                    row["difference"], row["tolerance"], row["p_value"], higher_is_better(column), alpha
+                )
             rows.append(row)
     return pd.DataFrame(rows, columns=COLUMNS), single
 
@@ -380,7 +287,9 @@ def _values(group: pd.DataFrame | None, column: str) -> np.ndarray | None:
     """Finite values of a measure over the seeds that finished, or None when there are none."""
     if group is None or column not in group:
         return None
-    ok = pd.to_numeric(group.loc[group["status"] == "ok", column], errors="coerce").to_numpy(dtype=float)
+    ok = pd.to_numeric(group.loc[group["status"] == CellStatus.OK, column], errors="coerce").to_numpy(
+        dtype=float
+    )
     ok = ok[np.isfinite(ok)]
     return ok if len(ok) else None
 
@@ -403,26 +312,37 @@ def _notes(cur: RunFolder, base: RunFolder, table: pd.DataFrame, single: int, al
     seeds_c = cur.manifest.get("seeds") or sorted(cur.scores["seed"].unique().tolist())
     seeds_b = base.manifest.get("seeds") or sorted(base.scores["seed"].unique().tolist())
     if set(seeds_c) != set(seeds_b):
-        notes.append(f"The runs used different seeds (baseline {_seed_text(seeds_b)}, current "
-                     f"{_seed_text(seeds_c)}); each configuration is compared over all its seeds.")
+        notes.append(
+            f"The runs used different seeds (baseline {seed_range(seeds_b)}, current "
+            f"{seed_range(seeds_c)}); each configuration is compared over all its seeds."
+        )
     if single:
-        notes.append(f"{single} comparisons have a single seed on one side: no seed-noise test is "
-                     "possible, so the tolerance alone decides them (p_value is empty).")
+        notes.append(
+            f"{single} comparisons have a single seed on one side: no seed-noise test is "
+            "possible, so the tolerance alone decides them (p_value is empty)."
+        )
     else:
-        notes.append(f"A change worse than its tolerance is a regression only when a one-sided Welch "
-                     f"t-test over seeds finds it at alpha = {alpha:g}; otherwise it is 'within noise'.")
+        notes.append(
+            f"A change worse than its tolerance is a regression only when a one-sided Welch "
+            f"t-test over seeds finds it at alpha = {alpha:g}; otherwise it is 'within noise'."
+        )
     ungated = sorted(set(table.loc[~table["gated"], "measure"]))
     if ungated:
-        notes.append(f"Listed but not part of the verdict: {', '.join(ungated)} (name them under "
-                     "'tolerances' or with --tolerance to gate them).")
-    failed = cur.scores[~cur.scores["status"].isin(["ok", "skipped"])]
+        notes.append(
+            f"Listed but not part of the verdict: {', '.join(ungated)} (name them under "
+            "'tolerances' or with --tolerance to gate them)."
+        )
+    failed = cur.scores[cur.scores["status"].map(is_failure)]
     if len(failed):
-        notes.append(f"{len(failed)} cells of the current run did not finish ok; their seeds are left "
-                     "out of the means.")
+        notes.append(
+            f"{len(failed)} cells of the current run did not finish ok; their seeds are left "
+            "out of the means."
+        )
     return notes
 
 
 # ---------------------------------------------------------------- renderers
+
 
 def _shown(outcome: CheckOutcome, show_unchanged: bool) -> pd.DataFrame:
     order = {v: i for i, v in enumerate(VERDICTS)}
@@ -433,13 +353,34 @@ def _shown(outcome: CheckOutcome, show_unchanged: bool) -> pd.DataFrame:
 def _row_cells(row: pd.Series) -> list[str]:
     verdict = row["verdict"] if row["gated"] or row["verdict"] != "regression" else "regression (not gated)"
     p = "-" if pd.isna(row["p_value"]) else f"{row['p_value']:.3g}"
-    return [row["dataset"], row["method"], row["params"], row["measure"], _num(row["baseline_mean"]),
-            _num(row["current_mean"]), _num(row["difference"], signed=True), _num(row["tolerance"]), p,
-            f"{row['baseline_seeds']}/{row['current_seeds']}", verdict]
+    return [
+        row["dataset"],
+        row["method"],
+        row["params"],
+        row["measure"],
+        _num(row["baseline_mean"]),
+        _num(row["current_mean"]),
+        _num(row["difference"], signed=True),
+        _num(row["tolerance"]),
+        p,
+        f"{row['baseline_seeds']}/{row['current_seeds']}",
+        verdict,
+    ]
 
 
-_HEADERS = ["dataset", "method", "params", "measure", "baseline", "current", "difference", "tolerance",
-            "p (worse)", "seeds b/c", "verdict"]
+_HEADERS = [
+    "dataset",
+    "method",
+    "params",
+    "measure",
+    "baseline",
+    "current",
+    "difference",
+    "tolerance",
+    "p (worse)",
+    "seeds b/c",
+    "verdict",
+]
 
 
 def _num(value: float, signed: bool = False) -> str:
@@ -502,16 +443,26 @@ def check_markdown(outcome: CheckOutcome, *, show_unchanged: bool = False) -> st
     -------
     str
     """
-    lines = [f"# Regression check: {'passed' if outcome.passed else 'FAILED'}", "",
-             f"Run `{outcome.current}` against baseline `{outcome.baseline}`.", "",
-             _summary_line(outcome), "", "## Environment differences", ""]
+    lines = [
+        f"# Regression check: {'passed' if outcome.passed else 'FAILED'}",
+        "",
+        f"Run `{outcome.current}` against baseline `{outcome.baseline}`.",
+        "",
+        _summary_line(outcome),
+        "",
+        "## Environment differences",
+        "",
+    ]
     lines += [f"- {_md(c)}" for c in outcome.environment_changes] or ["None recorded in the manifests."]
     lines += ["", "## Comparisons", ""]
     shown = _shown(outcome, show_unchanged)
     if len(shown):
         lines.append("| " + " | ".join(_HEADERS) + " |")
-        lines.append("|" + "|".join("---" if i < 4 or i == len(_HEADERS) - 1 else "---:"
-                                    for i in range(len(_HEADERS))) + "|")
+        lines.append(
+            "|"
+            + "|".join("---" if i < 4 or i == len(_HEADERS) - 1 else "---:" for i in range(len(_HEADERS)))
+            + "|"
+        )
         for _, r in shown.iterrows():
             cells = _row_cells(r)
             if r["verdict"] == "regression" and r["gated"]:
@@ -545,26 +496,46 @@ def junit_xml(outcome: CheckOutcome) -> str:
     table = outcome.table
     failures = int(((table["verdict"] == "regression") & table["gated"]).sum())
     skipped = int(table["verdict"].isin(["new", "missing"]).sum())
-    root = ET.Element("testsuites", name="foldbench check", tests=str(len(table)),
-                      failures=str(failures), errors="0", skipped=str(skipped))
-    suite = ET.SubElement(root, "testsuite", name=f"foldbench check {outcome.current.name}",
-                          tests=str(len(table)), failures=str(failures), errors="0", skipped=str(skipped))
+    root = ET.Element(
+        "testsuites",
+        name="foldbench check",
+        tests=str(len(table)),
+        failures=str(failures),
+        errors="0",
+        skipped=str(skipped),
+    )
+    suite = ET.SubElement(
+        root,
+        "testsuite",
+        name=f"foldbench check {outcome.current.name}",
+        tests=str(len(table)),
+        failures=str(failures),
+        errors="0",
+        skipped=str(skipped),
+    )
     props = ET.SubElement(suite, "properties")
     ET.SubElement(props, "property", name="baseline", value=str(outcome.baseline))
     ET.SubElement(props, "property", name="alpha", value=f"{outcome.alpha:g}")
     for i, change in enumerate(outcome.environment_changes):
         ET.SubElement(props, "property", name=f"environment.{i}", value=change)
     for _, r in table.iterrows():
-        case = ET.SubElement(suite, "testcase", classname=f"{r['dataset']}.{r['method']}[{r['params']}]",
-                             name=r["measure"])
-        detail = (f"{r['measure']} of {r['method']} [{r['params']}] on {r['dataset']}: baseline "
-                  f"{_num(r['baseline_mean'])} ({r['baseline_seeds']} seeds), current "
-                  f"{_num(r['current_mean'])} ({r['current_seeds']} seeds), difference "
-                  f"{_num(r['difference'], signed=True)}, tolerance {_num(r['tolerance'])}, p (worse) "
-                  f"{'-' if pd.isna(r['p_value']) else format(r['p_value'], '.3g')}: {r['verdict']}")
+        case = ET.SubElement(
+            suite, "testcase", classname=f"{r['dataset']}.{r['method']}[{r['params']}]", name=r["measure"]
+        )
+        detail = (
+            f"{r['measure']} of {r['method']} [{r['params']}] on {r['dataset']}: baseline "
+            f"{_num(r['baseline_mean'])} ({r['baseline_seeds']} seeds), current "
+            f"{_num(r['current_mean'])} ({r['current_seeds']} seeds), difference "
+            f"{_num(r['difference'], signed=True)}, tolerance {_num(r['tolerance'])}, p (worse) "
+            f"{'-' if pd.isna(r['p_value']) else format(r['p_value'], '.3g')}: {r['verdict']}"
+        )
         if r["verdict"] == "regression" and r["gated"]:
-            ET.SubElement(case, "failure", message=f"regression: {r['measure']} on {r['dataset']} / "
-                          f"{r['method']} [{r['params']}]", type="regression").text = detail
+            ET.SubElement(
+                case,
+                "failure",
+                message=f"regression: {r['measure']} on {r['dataset']} / {r['method']} [{r['params']}]",
+                type="regression",
+            ).text = detail
         elif r["verdict"] in ("new", "missing"):
             reason = "not in the baseline" if r["verdict"] == "new" else "not in the current run"
             ET.SubElement(case, "skipped", message=reason)
@@ -573,3 +544,9 @@ def junit_xml(outcome: CheckOutcome) -> str:
     ET.indent(root)
     return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
 
+
+def write_check(outcome: CheckOutcome, junit: str | Path | None = None) -> None:
+    """Write ``check.md`` into the judged run folder, and JUnit XML to ``junit`` when given."""
+    RunFolder(outcome.current).write_text("check.md", check_markdown(outcome))
+    if junit is not None:
+        write_text(Path(junit), junit_xml(outcome))

@@ -10,6 +10,7 @@ Sources
 - Percentile bootstrap: Efron and Tibshirani (1993), "An Introduction to the Bootstrap".
 - Procrustes disparity: ``scipy.spatial.procrustes`` (Gower 1975).
 """
+
 from __future__ import annotations
 
 import itertools
@@ -19,11 +20,12 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 from scipy import stats as _sps
 from scipy.spatial import procrustes
 from sklearn.neighbors import NearestNeighbors
 
-from .errors import InputError
+from ..errors import InputError
 
 #: Resamples of the percentile bootstrap; enough for stable 2.5% / 97.5% quantiles.
 BOOTSTRAP_RESAMPLES = 4000
@@ -31,8 +33,14 @@ BOOTSTRAP_RESAMPLES = 4000
 
 # ---------------------------------------------------------------- seeds
 
-def bootstrap_interval(values: Sequence[float] | np.ndarray, *, level: float = 0.95,
-                       resamples: int = BOOTSTRAP_RESAMPLES, seed: int = 0) -> tuple[float, float]:
+
+def bootstrap_interval(
+    values: ArrayLike,
+    *,
+    level: float = 0.95,
+    resamples: int = BOOTSTRAP_RESAMPLES,
+    seed: int = 0,
+) -> tuple[float, float]:
     """Percentile bootstrap interval of the mean.
 
     Parameters
@@ -62,8 +70,9 @@ def bootstrap_interval(values: Sequence[float] | np.ndarray, *, level: float = 0
     return (float(low), float(high))
 
 
-def seed_statistics(scores: pd.DataFrame, measures: Sequence[str], *, level: float = 0.95,
-                    seed: int = 0) -> pd.DataFrame:
+def seed_statistics(
+    scores: pd.DataFrame, measures: Sequence[str], *, level: float = 0.95, seed: int = 0
+) -> pd.DataFrame:
     """Mean, standard deviation and bootstrap interval of each measure over seeds.
 
     Parameters
@@ -166,8 +175,9 @@ class Stability:
     sampled: bool = False
 
 
-def embedding_stability(embeddings: Sequence[np.ndarray], k: int, *, max_queries: int = 2000,
-                        seed: int = 0) -> Stability:
+def embedding_stability(
+    embeddings: Sequence[np.ndarray], k: int, *, max_queries: int = 2000, seed: int = 0
+) -> Stability:
     """Agreement between the embeddings that different seeds gave the same data.
 
     Parameters
@@ -197,9 +207,12 @@ def embedding_stability(embeddings: Sequence[np.ndarray], k: int, *, max_queries
     for a, b in itertools.combinations(embs, 2):
         overlaps.append(knn_overlap(a, b, k, queries=queries))
         disparities.append(_disparity(a, b))
-    return Stability(float(np.mean(overlaps)), float(np.nanmean(disparities))
-                     if np.isfinite(disparities).any() else math.nan,
-                     len(overlaps), queries is not None)
+    return Stability(
+        float(np.mean(overlaps)),
+        float(np.nanmean(disparities)) if np.isfinite(disparities).any() else math.nan,
+        len(overlaps),
+        queries is not None,
+    )
 
 
 def _disparity(a: np.ndarray, b: np.ndarray) -> float:
@@ -211,6 +224,7 @@ def _disparity(a: np.ndarray, b: np.ndarray) -> float:
 
 
 # ---------------------------------------------------------------- ranks and tests
+
 
 def rank_blocks(values: np.ndarray, higher_is_better: bool = True) -> np.ndarray:
     """Rank the treatments within each block (row); 1 = best, ties share the average rank.
@@ -276,9 +290,12 @@ def friedman_test(ranks: np.ndarray) -> FriedmanResult:
     """
     r = np.asarray(ranks, dtype=float)
     if r.ndim != 2 or r.shape[0] < 2 or r.shape[1] < 3:
-        raise InputError("ranks", "the Friedman test needs at least 2 datasets and 3 methods, "
-                                  f"got {r.shape[0] if r.ndim == 2 else 0} and "
-                                  f"{r.shape[1] if r.ndim == 2 else 0}")
+        raise InputError(
+            "ranks",
+            "the Friedman test needs at least 2 datasets and 3 methods, "
+            f"got {r.shape[0] if r.ndim == 2 else 0} and "
+            f"{r.shape[1] if r.ndim == 2 else 0}",
+        )
     n, k = r.shape
     mean_ranks = r.mean(axis=0)
     chi2, _ = friedman_from_mean_ranks(mean_ranks, n)
@@ -286,7 +303,7 @@ def friedman_test(ranks: np.ndarray) -> FriedmanResult:
     ties = 0.0
     for row in r:
         _, counts = np.unique(row, return_counts=True)
-        ties += float(np.sum(counts ** 3 - counts))
+        ties += float(np.sum(counts**3 - counts))
     chi2 /= 1.0 - ties / (k * (k * k - 1) * n)
     p = float(_sps.chi2.sf(chi2, k - 1))
     f = _iman_davenport(chi2, n, k)
@@ -294,7 +311,7 @@ def friedman_test(ranks: np.ndarray) -> FriedmanResult:
     return FriedmanResult(float(chi2), p, float(f), pf, mean_ranks, n, k)
 
 
-def friedman_from_mean_ranks(mean_ranks: Sequence[float], n_blocks: int) -> tuple[float, float]:
+def friedman_from_mean_ranks(mean_ranks: ArrayLike, n_blocks: int) -> tuple[float, float]:
     """Friedman's chi-square and Iman and Davenport's F from mean ranks (no tie correction).
 
     chi2_F = 12N / (k(k+1)) * (sum R_j^2 - k(k+1)^2 / 4) and
@@ -313,7 +330,7 @@ def friedman_from_mean_ranks(mean_ranks: Sequence[float], n_blocks: int) -> tupl
     """
     r = np.asarray(mean_ranks, dtype=float)
     k = r.size
-    chi2 = 12.0 * n_blocks / (k * (k + 1)) * (np.sum(r ** 2) - k * (k + 1) ** 2 / 4.0)
+    chi2 = 12.0 * n_blocks / (k * (k + 1)) * (np.sum(r**2) - k * (k + 1) ** 2 / 4.0)
     return float(chi2), _iman_davenport(float(chi2), n_blocks, k)
 
 
@@ -340,7 +357,7 @@ def critical_difference(k: int, n_blocks: int, alpha: float = 0.05) -> float:
     return nemenyi_q(k, alpha) * math.sqrt(k * (k + 1) / (6.0 * n_blocks))
 
 
-def indistinct_groups(mean_ranks: Sequence[float], cd: float) -> list[tuple[int, ...]]:
+def indistinct_groups(mean_ranks: ArrayLike, cd: float) -> list[tuple[int, ...]]:
     """Maximal runs of treatments whose mean ranks differ by less than ``cd``.
 
     Parameters
@@ -364,15 +381,15 @@ def indistinct_groups(mean_ranks: Sequence[float], cd: float) -> list[tuple[int,
         while j + 1 < len(order) and r[order[j + 1]] - r[order[i]] < cd:
             j += 1
         if j > i and j > last_end:
-            groups.append(tuple(int(x) for x in order[i:j + 1]))
+            groups.append(tuple(int(x) for x in order[i : j + 1]))
             last_end = j
     return groups
 
 
 # ---------------------------------------------------------------- fronts
 
-def pareto_front(quality: Sequence[float], cost: Sequence[float], *,
-                 higher_is_better: bool = True) -> np.ndarray:
+
+def pareto_front(quality: ArrayLike, cost: ArrayLike, *, higher_is_better: bool = True) -> np.ndarray:
     """Points no other point beats on both quality and cost.
 
     Parameters

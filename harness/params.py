@@ -4,6 +4,7 @@ A registry entry lists its parameters as :class:`Param` values.  The suite
 loader checks user values against them once, at the edge, and everything
 downstream trusts the result.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
@@ -12,8 +13,14 @@ from typing import Any
 
 from .errors import InputError, suggest
 
-_TYPE_NAMES = {bool: "true/false", int: "an integer", float: "a number", str: "text",
-               list: "a list", dict: "a mapping"}
+_TYPE_NAMES = {
+    bool: "true/false",
+    int: "an integer",
+    float: "a number",
+    str: "text",
+    list: "a list",
+    dict: "a mapping",
+}
 
 
 @dataclass(frozen=True)
@@ -66,7 +73,9 @@ class Param:
             raise InputError(where, f"expected {self.type_name()}, got {value!r}")
         if self.choices is not None and value not in self.choices:
             allowed = ", ".join(map(str, self.choices))
-            raise InputError(where, f"expected one of {allowed}, got {value!r}{suggest(value, map(str, self.choices))}")
+            raise InputError(
+                where, f"expected one of {allowed}, got {value!r}{suggest(value, map(str, self.choices))}"
+            )
         if self.check is not None:
             problem = self.check(value)
             if problem:
@@ -81,14 +90,17 @@ def at_least(low: float) -> Callable[[Any], str | None]:
 
 def between(low: float, high: float, *, open_low: bool = False) -> Callable[[Any], str | None]:
     """Check ``low <= value <= high`` (or ``low < value`` with ``open_low``)."""
+
     def check(v: Any) -> str | None:
         ok = (v > low if open_low else v >= low) and v <= high
         return None if ok else f"a value in {'(' if open_low else '['}{low}, {high}]"
+
     return check
 
 
-def validate_params(given: Mapping[str, Any] | None, params: tuple[Param, ...], where: str,
-                    *, fill_defaults: bool = True) -> dict[str, Any]:
+def validate_params(
+    given: Mapping[str, Any] | None, params: tuple[Param, ...], where: str, *, fill_defaults: bool = True
+) -> dict[str, Any]:
     """Check a mapping of user values against declared parameters.
 
     Parameters

@@ -1,4 +1,5 @@
 """Suites written for the user: the commented starter and the one-table default."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -48,12 +49,28 @@ def table_suite_text(name: str, path: Path, label: str | None, n: int) -> str:
     neighbours = max(2, min(10, n - 2))
     k = max(1, min(10, n - 3))
     quadratic = "" if n > 3000 else "  - use: mds\n  - use: sammon\n"
-    return (f"name: {name}\nseeds: 3\ndimensions: 2\n"
-            f"datasets:\n  - use: table\n    name: {name}\n"
-            f"    params: {{path: {str(path)!r}{label_line}, standardise: true}}\n"
-            "methods:\n  - use: pca\n  - use: random_projection\n"
-            f"  - use: isomap\n    params: {{n_neighbors: {neighbours}}}\n"
-            f"  - use: laplacian_eigenmaps\n    params: {{n_neighbors: {neighbours}}}\n"
-            f"{quadratic}"
-            f"  - use: tsne\n    params: {{perplexity: {perplexity}}}\n"
-            f"measures:\n  k: [{k}]\n")
+    return (
+        f"name: {name}\nseeds: 3\ndimensions: 2\n"
+        f"datasets:\n  - use: table\n    name: {name}\n"
+        f"    params: {{path: {str(path)!r}{label_line}, standardise: true}}\n"
+        "methods:\n  - use: pca\n  - use: random_projection\n"
+        f"  - use: isomap\n    params: {{n_neighbors: {neighbours}}}\n"
+        f"  - use: laplacian_eigenmaps\n    params: {{n_neighbors: {neighbours}}}\n"
+        f"{quadratic}"
+        f"  - use: tsne\n    params: {{perplexity: {perplexity}}}\n"
+        f"measures:\n  k: [{k}]\n"
+    )
+
+
+def write_starter(path: str | Path, *, force: bool = False) -> Path:
+    """Write the commented starter suite to ``path`` (refusing to overwrite unless ``force``)."""
+    from ..errors import InputError
+
+    target = Path(path)
+    if target.exists() and not force:
+        raise InputError(str(target), "already exists; expected a new file name (or --force to overwrite)")
+    try:
+        target.write_text(STARTER_SUITE, encoding="utf-8")
+    except OSError as exc:
+        raise InputError(str(target), f"cannot write the starter suite ({exc.strerror or exc})") from None
+    return target

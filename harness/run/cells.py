@@ -1,4 +1,5 @@
 """Cells: one (dataset, method, parameters, seed) each, and the plan that lists them."""
+
 from __future__ import annotations
 
 import hashlib
@@ -9,9 +10,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .datasets import Dataset
-from .methods import get_method_spec
-from .suite import Suite
+from ..config import CellStatus
+from ..datasets import Dataset
+from ..methods import MethodSpec, get_method_spec
+from ..suite import Suite
+from ..text import params_text
 
 #: Bytes per float64 matrix entry times the dense n x n matrices such a method keeps at once
 #: (distances, weights, gradient terms); a rough, deliberately generous estimate.
@@ -37,7 +40,7 @@ class Cell:
     @property
     def params_text(self) -> str:
         """Compact text of the parameters, ``-`` when there are none."""
-        return ",".join(f"{k}={_short(v)}" for k, v in self.params) or "-"
+        return params_text(self.params)
 
     @property
     def key(self) -> str:
@@ -50,16 +53,25 @@ class Cell:
         return dict(self.params)
 
 
+@dataclass(frozen=True)
+class KnownFit:
+    """An embedding computed before (the cache's), with the cost of the fit that made it."""
+
+    embedding: np.ndarray
+    fit_seconds: float
+    fit_peak_mb: float
+
+
 @dataclass
 class CellResult:
-    """What computing a cell produced; plain data handed from the runner to the store.
+    """What computing a cell produced; plain data handed from a backend to the run folder.
 
-    ``status`` is ``ok``, ``failed``, ``timeout``, ``crashed``, ``skipped`` or
-    ``interrupted`` (never stored: such a cell is computed again on resume).
+    ``status`` is a :class:`~harness.config.CellStatus`; ``interrupted`` is never
+    stored, so such a cell is computed again on resume.
     """
 
     cell: Cell
-    status: str
+    status: CellStatus
     error: str = ""
     detail: str = ""
     embedding: np.ndarray | None = None
@@ -72,10 +84,6 @@ class CellResult:
     score_seconds: float = float("nan")
     from_cache: bool = False
     warnings: tuple[str, ...] = ()
-
-
-def _short(value: Any) -> str:
-    return f"{value:g}" if isinstance(value, float) else str(value)
 
 
 def _canonical(params: dict[str, Any]) -> tuple[tuple[str, Any], ...]:
@@ -107,23 +115,25 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
         ds = datasets[d.name]
         fp = ds.fingerprint()
         for m in suite.methods:
-            spec = get_method_spec(m.use)
+            spec = get_method_spec(m.use, roots=suite.plugin_roots)
             reason = _refusal(spec, ds, suite.run.quadratic_limit)
             for point in m.grid_points():
                 for seed in suite.seeds:
                     cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)
                     if reason:
-                        refused.append(CellResult(cell, "skipped", reason))
+                        refused.append(CellResult(cell, CellStatus.SKIPPED, reason))
                     else:
                         cells.append(cell)
     return cells, refused
 
 
-def _refusal(spec: Any, ds: Dataset, quadratic_limit: int) -> str:
+def _refusal(spec: MethodSpec, ds: Dataset, quadratic_limit: int) -> str:
     if ds.is_precomputed and not spec.accepts_distances:
-        return (f"{spec.name} needs feature coordinates; dataset '{ds.name}' is a distance matrix")
+        return f"{spec.name} needs feature coordinates; dataset '{ds.name}' is a distance matrix"
     if spec.quadratic_memory and ds.n > quadratic_limit:
-        gib = _QUADRATIC_MATRICES * 8 * ds.n ** 2 / 2**30
-        return (f"{spec.name} keeps n x n matrices: n={ds.n} needs about {gib:.1f} GiB; "
-                f"raise run.quadratic_limit (now {quadratic_limit}) or --quadratic-limit to allow it")
+        gib = _QUADRATIC_MATRICES * 8 * ds.n**2 / 2**30
+        return (
+            f"{spec.name} keeps n x n matrices: n={ds.n} needs about {gib:.1f} GiB; "
+            f"raise run.quadratic_limit (now {quadratic_limit}) or --quadratic-limit to allow it"
+        )
     return ""

@@ -1,4 +1,5 @@
 """What a run was made with: versions, machine, suite and data fingerprints."""
+
 from __future__ import annotations
 
 import hashlib
@@ -13,8 +14,14 @@ from typing import Any
 from threadpoolctl import threadpool_info
 
 #: Environment variables that set thread counts of BLAS / OpenMP, which can move results.
-THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
-                    "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+THREAD_VARIABLES = (
+    "OMP_NUM_THREADS",
+    "OPENBLAS_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "BLIS_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+    "NUMEXPR_NUM_THREADS",
+)
 
 #: Distributions whose versions can move results.
 TRACKED = ("foldbench", "numpy", "scipy", "scikit-learn", "pandas", "joblib", "threadpoolctl", "pyyaml")
@@ -82,12 +89,19 @@ def cpu_model() -> str:
 def git_commit(folder: str | None = None) -> str | None:
     """Commit of the git work tree containing ``folder`` (``+dirty`` if modified), or ``None``."""
     try:
-        head = subprocess.run(["git", "rev-parse", "HEAD"], cwd=folder, capture_output=True,
-                              text=True, timeout=5)
+        head = subprocess.run(
+            ["git", "rev-parse", "HEAD"], cwd=folder, capture_output=True, check=False, text=True, timeout=5
+        )
         if head.returncode != 0:
             return None
-        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"], cwd=folder,
-                               capture_output=True, text=True, timeout=5).stdout.strip()
+        dirty = subprocess.run(
+            ["git", "status", "--porcelain", "--untracked-files=no"],
+            cwd=folder,
+            capture_output=True,
+            check=False,
+            text=True,
+            timeout=5,
+        ).stdout.strip()
         return head.stdout.strip() + ("+dirty" if dirty else "")
     except (OSError, subprocess.SubprocessError):
         return None

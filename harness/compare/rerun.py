@@ -1,16 +1,14 @@
-"""Reproduce a finished run from its folder and say, cell by cell, whether it came out the same.
+"""Two runs of the same suite compared cell by cell: did it come out the same?
 
-The suite is read from the run's own ``suite.yaml`` and the seeds from its
-``manifest.json``; the new run lands in a fresh folder.  Every measure value
-and every stored embedding of a cell is compared: ``identical`` (bit for bit),
-``equal within 1e-9`` (largest absolute difference at most 1e-9) or
-``different`` (with the largest difference and where it is).  Fit time and
-peak memory measure the machine, not the method, and are left out.
+Every measure value and every stored embedding of a cell is compared:
+``identical`` (bit for bit), ``equal within 1e-9`` (largest absolute
+difference at most 1e-9) or ``different`` (with the largest difference and
+where it is).  Fit time and peak memory measure the machine, not the method,
+and are left out.  :func:`harness.rerun` runs a finished run again and uses this.
 """
+
 from __future__ import annotations
 
-import dataclasses
-import logging
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,15 +17,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import store
-from .check import read_run_folder, environment_changes
-from .errors import InputError
-from .metrics import MEASURES
-from .pipeline import run_suite
-from .rank import measure_columns, stem
-from .suite import parse_suite
-
-log = logging.getLogger(__name__)
+from ..metrics import MEASURES, measure_stem
+from ..run.folder import RunFolder
+from .aggregate import measure_columns
 
 #: Largest absolute difference still reported as equal (floating-point round-off).
 CLOSE = 1e-9
@@ -72,70 +64,25 @@ class RerunOutcome:
         return {str(k): int(v) for k, v in self.table["verdict"].value_counts().items()}
 
 
-def rerun(run_dir: str | Path, out: str | Path | None = None, *, jobs: int | None = None,
-          isolate: bool = True) -> RerunOutcome:
-    """Run a finished run again from its folder and compare every cell.
-
-    Parameters
-    ----------
-    run_dir : str or Path
-        The finished run folder (``suite.yaml``, ``manifest.json``, ``cells/``).
-    out : str or Path, optional
-        Root folder for the new run (default: the root the original run is in,
-        so the re-run lands next to it under ``<root>/<suite>/``).
-    jobs : int, optional
-        Cells computed at once (default: the suite's ``run.jobs``).
-    isolate : bool
-        Run each cell in its own child process, as ``run_suite`` does.
-
-    Returns
-    -------
-    RerunOutcome
-
-    Raises
-    ------
-    InputError
-        When the folder is not a finished run folder or its suite no longer loads.
-    """
-    original = read_run_folder(run_dir, "run folder")
-    suite_file = original.path / "suite.yaml"
-    if not suite_file.is_file():
-        raise InputError(f"run folder {original.path}", "no suite.yaml; expected a run folder made by "
-                                                         "'foldbench run'")
-    recorded = original.manifest.get("suite") or {}
-    suite = parse_suite(suite_file.read_text(encoding="utf-8"), str(recorded.get("path") or suite_file))
-    seeds = tuple(int(s) for s in original.manifest.get("seeds") or suite.seeds)
-    suite = dataclasses.replace(suite, seeds=seeds)
-    root = Path(out) if out is not None else original.path.parent.parent
-    log.info("re-running %s into %s", original.path, root)
-    outcome = run_suite(suite, root, jobs=jobs, isolate=isolate)
-    new = read_run_folder(outcome.run_dir, "re-run folder")
-    table = compare_cells(original.path, original.scores, new.path, new.scores)
-    notes = ["Fit time and peak memory are not compared: they measure the machine, not the method."]
-    if suite.digest != recorded.get("hash"):
-        notes.append("The suite text hashes differently from the manifest's record; the re-run used "
-                     "the folder's suite.yaml.")
-    return RerunOutcome(original.path, new.path, table,
-                        environment_changes(original.manifest, new.manifest), notes)
-
-
-def compare_cells(old_dir: Path, old: pd.DataFrame, new_dir: Path, new: pd.DataFrame) -> pd.DataFrame:
+def compare_cells(old_run: RunFolder, new_run: RunFolder) -> pd.DataFrame:
     """Compare two runs cell by cell: measure values and stored embeddings.
 
     Parameters
     ----------
-    old_dir, new_dir : Path
-        The run folders (embeddings are read from them).
-    old, new : DataFrame
-        Their scores tables.
+    old_run, new_run : RunFolder
+        The two run folders.
 
     Returns
     -------
     DataFrame
         See :attr:`RerunOutcome.table`.
     """
-    columns = [c for c in dict.fromkeys([*measure_columns(old), *measure_columns(new)])
-               if MEASURES[stem(c)].scope != "cost"]
+    old, new = old_run.scores, new_run.scores
+    columns = [
+        c
+        for c in dict.fromkeys([*measure_columns(old), *measure_columns(new)])
+        if MEASURES[measure_stem(c)].scope != "cost"
+    ]
     left = old.assign(_k=old[_CELL].astype(str).agg("|".join, axis=1)).set_index("_k")
     right = new.assign(_k=new[_CELL].astype(str).agg("|".join, axis=1)).set_index("_k")
     rows = []
@@ -143,25 +90,33 @@ def compare_cells(old_dir: Path, old: pd.DataFrame, new_dir: Path, new: pd.DataF
         a = left.loc[key] if key in left.index else None
         b = right.loc[key] if key in right.index else None
         ref = a if a is not None else b
+        assert ref is not None  # every key comes from one side or the other
         row: dict[str, Any] = {c: ref[c] for c in _CELL}
         if a is None or b is None:
-            row.update(verdict="new" if a is None else "missing", largest_difference=math.nan,
-                       where="only in the re-run" if a is None else "only in the original")
+            row.update(
+                verdict="new" if a is None else "missing",
+                largest_difference=math.nan,
+                where="only in the re-run" if a is None else "only in the original",
+            )
         else:
-            row.update(_compare_cell(a, b, columns, old_dir, new_dir))
+            row.update(_compare_cell(a, b, columns, old_run, new_run))
         rows.append(row)
     return pd.DataFrame(rows, columns=[*_CELL, "verdict", "largest_difference", "where"])
 
 
-def _compare_cell(a: pd.Series, b: pd.Series, columns: list[str], old_dir: Path, new_dir: Path
-                  ) -> dict[str, Any]:
+def _compare_cell(
+    a: pd.Series, b: pd.Series, columns: list[str], old_run: RunFolder, new_run: RunFolder
+) -> dict[str, Any]:
     if a["status"] != b["status"]:
-        return {"verdict": "different", "largest_difference": math.nan,
-                "where": f"status {a['status']} → {b['status']}"}
+        return {
+            "verdict": "different",
+            "largest_difference": math.nan,
+            "where": f"status {a['status']} → {b['status']}",
+        }
     exact = True
     largest, where = 0.0, ""
-    pairs = [(c, _number(a.get(c)), _number(b.get(c))) for c in columns]
-    pairs.append(("embedding", store.load_embedding(old_dir, a["key"]), store.load_embedding(new_dir, b["key"])))
+    pairs: list[tuple[str, Any, Any]] = [(c, _number(a.get(c)), _number(b.get(c))) for c in columns]
+    pairs.append(("embedding", old_run.embedding(a["key"]), new_run.embedding(b["key"])))
     for name, x, y in pairs:
         same, diff = _difference(x, y)
         exact &= same
@@ -214,9 +169,13 @@ def rerun_text(outcome: RerunOutcome) -> str:
         lines += ["Environment differences:"] + [f"  {c}" for c in outcome.environment_changes] + [""]
     off = outcome.table[~outcome.table["verdict"].isin(REPRODUCED)]
     for _, r in off.iterrows():
-        gap = "" if pd.isna(r["largest_difference"]) else f", largest difference {r['largest_difference']:.3g}"
-        lines.append(f"  {r['verdict']}: {r['method']} [{r['params']}] on {r['dataset']}, seed {r['seed']}"
-                     f" ({r['where']}{gap})")
+        gap = (
+            "" if pd.isna(r["largest_difference"]) else f", largest difference {r['largest_difference']:.3g}"
+        )
+        lines.append(
+            f"  {r['verdict']}: {r['method']} [{r['params']}] on {r['dataset']}, seed {r['seed']}"
+            f" ({r['where']}{gap})"
+        )
     if len(off):
         lines.append("")
     lines += [f"Note: {n}" for n in outcome.notes]

@@ -9,6 +9,7 @@ under every scoring setting it was scored with, so a finished cell run again
 with the same settings costs neither a fit nor a score.  Only the parent process
 writes entries (atomically); children only read.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -17,7 +18,7 @@ import json
 import logging
 import shutil
 from dataclasses import asdict, dataclass
-from functools import lru_cache
+from functools import cache, lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -25,10 +26,10 @@ import numpy as np
 import pandas as pd
 import platformdirs
 
-from .cells import Cell, CellResult
+from ..config import CellStatus, Scoring
+from .atomic import write_json, write_npy
+from .cells import Cell, CellResult, KnownFit
 from .manifest import package_versions
-from .store import write_json, write_npy
-from .suite import Scoring
 
 log = logging.getLogger(__name__)
 
@@ -41,7 +42,7 @@ def default_cache_dir() -> Path:
     return Path(platformdirs.user_cache_dir("foldbench", appauthor=False))
 
 
-@lru_cache(maxsize=None)
+@cache
 def _plugin_identity(use: str) -> str:
     module = use.split(":", 1)[0]
     versions = package_versions((module,))
@@ -90,15 +91,6 @@ def _floats(values: dict[str, Any]) -> dict[str, float]:
 
 
 @dataclass(frozen=True)
-class CacheEntry:
-    """A cached embedding with the cost of the fit that made it."""
-
-    embedding: np.ndarray
-    fit_seconds: float
-    fit_peak_mb: float
-
-
-@dataclass(frozen=True)
 class EmbeddingCache:
     """The cache folder: ``<root>/<2 hex>/<key>.npy`` plus ``<key>.json``.
 
@@ -114,7 +106,7 @@ class EmbeddingCache:
         folder = self.root / key[:2]
         return folder / f"{key}.npy", folder / f"{key}.json"
 
-    def get(self, cell: Cell) -> CacheEntry | None:
+    def get(self, cell: Cell) -> KnownFit | None:
         """The cached embedding of ``cell``, or ``None``."""
         npy, meta = self._paths(cache_key(cell))
         try:
@@ -124,21 +116,36 @@ class EmbeddingCache:
             return None
         if embedding.shape[1:] != (cell.dimensions,):
             return None
-        return CacheEntry(embedding, float(info.get("fit_seconds") or np.nan),
-                          float(info.get("fit_peak_mb") or np.nan))
+        return KnownFit(
+            embedding, float(info.get("fit_seconds") or np.nan), float(info.get("fit_peak_mb") or np.nan)
+        )
 
     def put(self, cell: Cell, embedding: np.ndarray, fit_seconds: float, fit_peak_mb: float) -> None:
         """Store an embedding (the ``.npy`` first, its ``.json`` last, both atomically)."""
         npy, meta = self._paths(cache_key(cell))
         write_npy(npy, embedding)
-        write_json(meta, {"cell": {"dataset": cell.dataset, "method": cell.method, "use": cell.use,
-                                   "params": cell.params_text, "seed": cell.seed},
-                          "fit_seconds": fit_seconds, "fit_peak_mb": fit_peak_mb, "scores": {}})
+        write_json(
+            meta,
+            {
+                "cell": {
+                    "dataset": cell.dataset,
+                    "method": cell.method,
+                    "use": cell.use,
+                    "params": cell.params_text,
+                    "seed": cell.seed,
+                },
+                "fit_seconds": fit_seconds,
+                "fit_peak_mb": fit_peak_mb,
+                "scores": {},
+            },
+        )
 
     def put_result(self, result: CellResult, scoring: Scoring) -> None:
         """Store an ok cell: its embedding if new, and its scores under these scoring settings."""
         cell = result.cell
-        npy, meta = self._paths(cache_key(cell))
+        _npy, meta = self._paths(cache_key(cell))
+        if result.embedding is None:
+            return
         if not result.from_cache or not meta.exists():
             self.put(cell, result.embedding, result.fit_seconds, result.fit_peak_mb)
         try:
@@ -147,8 +154,13 @@ class EmbeddingCache:
             return
         curve = None if result.curve is None else result.curve.to_dict(orient="list")
         info.setdefault("scores", {})[scoring_digest(scoring)] = {
-            "values": result.values, "halfwidths": result.halfwidths, "estimated": list(result.estimated),
-            "curve": curve, "score_seconds": result.score_seconds, "warnings": list(result.warnings)}
+            "values": result.values,
+            "halfwidths": result.halfwidths,
+            "estimated": list(result.estimated),
+            "curve": curve,
+            "score_seconds": result.score_seconds,
+            "warnings": list(result.warnings),
+        }
         write_json(meta, info)
 
     def get_result(self, cell: Cell, scoring: Scoring) -> CellResult | None:
@@ -168,13 +180,20 @@ class EmbeddingCache:
         if embedding.shape[1:] != (cell.dimensions,):
             return None
         curve = None if scored.get("curve") is None else pd.DataFrame(scored["curve"])
-        return CellResult(cell, "ok", embedding=embedding, values=_floats(scored["values"]),
-                          halfwidths=_floats(scored.get("halfwidths") or {}),
-                          estimated=tuple(scored.get("estimated") or ()), curve=curve,
-                          fit_seconds=_float(info.get("fit_seconds")),
-                          fit_peak_mb=_float(info.get("fit_peak_mb")),
-                          score_seconds=_float(scored.get("score_seconds")), from_cache=True,
-                          warnings=tuple(scored.get("warnings") or ()))
+        return CellResult(
+            cell,
+            CellStatus.OK,
+            embedding=embedding,
+            values=_floats(scored["values"]),
+            halfwidths=_floats(scored.get("halfwidths") or {}),
+            estimated=tuple(scored.get("estimated") or ()),
+            curve=curve,
+            fit_seconds=_float(info.get("fit_seconds")),
+            fit_peak_mb=_float(info.get("fit_peak_mb")),
+            score_seconds=_float(scored.get("score_seconds")),
+            from_cache=True,
+            warnings=tuple(scored.get("warnings") or ()),
+        )
 
     def info(self) -> dict[str, Any]:
         """Number of entries and bytes used."""

@@ -14,29 +14,28 @@ rebuilt instead of lost, and only the cell that killed its workers fails.
 ``distributed`` is imported inside the functions, so ``import harness`` works
 without the ``dask`` extra.
 """
+
 from __future__ import annotations
 
 import logging
-import os
-import sys
 import threading
 import traceback
 import uuid
 from collections.abc import Iterator
 from concurrent.futures import CancelledError
 from contextlib import contextmanager
-from dataclasses import dataclass
 from types import ModuleType
 from typing import Any
 
 from threadpoolctl import threadpool_limits
 
-from .cache import CacheEntry, EmbeddingCache
-from .cells import Cell, CellResult
-from .datasets import Dataset
-from .errors import InputError
-from .runner import Execution, compute_cell
-from .suite import Scoring
+from ...config import CellStatus, Scoring
+from ...datasets import Dataset
+from ...errors import InputError
+from ...text import exception_line
+from ..cells import Cell, CellResult, KnownFit
+from ..compute import compute_cell
+from . import Execution
 
 log = logging.getLogger(__name__)
 
@@ -50,63 +49,51 @@ _TASK_THREADS = 1
 MISSING_EXTRA = "the dask backend needs the dask extra: pip install 'foldbench[dask]'"
 
 
-def execute_on_dask(cells: list[Cell], datasets: dict[str, Dataset], scoring: Scoring,
-                    execution: Execution, cache: EmbeddingCache | None = None,
-                    stop: threading.Event | None = None,
-                    scheduler: str | None = None) -> Iterator[CellResult]:
-    """Compute cells on a Dask cluster and yield each result as soon as it is ready.
+class DaskBackend:
+    """Cells as tasks on a Dask cluster: the same results as the local backend, computed elsewhere."""
 
-    The contract is that of :func:`harness.runner.execute`: results come in
-    finishing order, every cell ends with exactly one result, and nothing is
-    written here.
+    def execute(
+        self,
+        cells: list[Cell],
+        datasets: dict[str, Dataset],
+        scoring: Scoring,
+        execution: Execution,
+        known: dict[str, KnownFit],
+        stop: threading.Event,
+    ) -> Iterator[CellResult]:
+        """Compute cells on a Dask cluster and yield each result as soon as it is ready.
 
-    Parameters
-    ----------
-    cells : list of Cell
-        Cells to compute.
-    datasets : dict
-        Dataset name to :class:`Dataset`.
-    scoring : Scoring
-        Measure settings.
-    execution : Execution
-        ``jobs`` sizes the local cluster started when ``scheduler`` is None;
-        ``time_limit`` is measured on the worker from the moment the cell starts.
-        ``isolate`` is ignored: cells never run in the parent process.
-    cache : EmbeddingCache, optional
-        Read by the parent only; a cached cell is sent with its embedding and only scored.
-    stop : threading.Event, optional
-        When set, outstanding cells are cancelled and come back ``interrupted``.
-    scheduler : str, optional
-        Address of a running Dask scheduler (``tcp://host:8786``).  ``None``
-        starts a cluster of worker processes on this machine for the duration
-        of the call.
+        The contract is that of :class:`~harness.run.backends.Backend`.
+        ``execution.jobs`` sizes the local cluster started when
+        ``execution.scheduler`` is None; ``time_limit`` is measured on the
+        worker from the moment the cell starts; ``isolate`` is ignored (cells
+        never run in the parent process).
 
-    Yields
-    ------
-    CellResult
-        Besides the statuses of :func:`compute_cell`: ``timeout`` when the cell
-        overran ``time_limit``; ``crashed`` when the workers running it kept
-        dying; ``failed`` when the task raised (for instance a plug-in module
-        that a worker cannot import).
+        Yields
+        ------
+        CellResult
+            Besides the statuses of :func:`~harness.run.compute.compute_cell`:
+            ``timeout`` when the cell overran its time limit; ``crashed`` when
+            the workers running it kept dying; ``failed`` when the task raised
+            (for instance a plug-in module that a worker cannot import).
 
-    Raises
-    ------
-    InputError
-        When ``distributed`` is not installed, or the scheduler cannot be reached.
+        Raises
+        ------
+        InputError
+            When ``distributed`` is not installed, or the scheduler cannot be reached.
 
-    Notes
-    -----
-    A cell that overruns its time limit is reported at once, but Python cannot
-    stop the thread that computes it: it keeps its worker busy until the fit
-    ends.  The local backend, which runs each cell in a process of its own,
-    stops such a cell for good.
-    """
-    if not cells:
-        return
-    dd = _import_distributed()
-    stop = stop or threading.Event()
-    with _client(dd, scheduler, max(1, min(execution.jobs, len(cells)))) as client:
-        yield from _run(dd, client, cells, datasets, scoring, execution.time_limit, cache, stop)
+        Notes
+        -----
+        A cell that overruns its time limit is reported at once, but Python
+        cannot stop the thread that computes it: it keeps its worker busy until
+        the fit ends.  The local backend, which runs each cell in a process of
+        its own, stops such a cell for good.
+        """
+        if not cells:
+            return
+        dd = _import_distributed()
+        with _client(dd, execution.scheduler, max(1, min(execution.jobs, len(cells)))) as client:
+            yield from _run(dd, client, cells, datasets, scoring, execution, known, stop)
 
 
 def _import_distributed() -> ModuleType:
@@ -124,17 +111,25 @@ def _client(dd: ModuleType, scheduler: str | None, workers: int) -> Iterator[Any
         try:
             client = dd.Client(scheduler, timeout=_CONNECT_TIMEOUT)
         except (OSError, TimeoutError, ValueError) as exc:
-            raise InputError("--scheduler", f"expected the address of a running Dask scheduler "
-                                            f"(tcp://host:8786); could not connect to {scheduler!r} "
-                                            f"({type(exc).__name__}: {exc})") from None
+            raise InputError(
+                "--scheduler",
+                f"expected the address of a running Dask scheduler "
+                f"(tcp://host:8786); could not connect to {scheduler!r} "
+                f"({type(exc).__name__}: {exc})",
+            ) from None
         try:
             yield client
         finally:
             client.close()
         return
     # Worker processes, one thread each: a cell is the unit of parallelism, as in the local backend.
-    cluster = dd.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                              dashboard_address=":0", silence_logs=logging.ERROR)
+    cluster = dd.LocalCluster(
+        n_workers=workers,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address=":0",
+        silence_logs=logging.ERROR,
+    )
     try:
         client = dd.Client(cluster)
         log.info("started a local Dask cluster of %d workers (dashboard: %s)", workers, client.dashboard_link)
@@ -146,21 +141,36 @@ def _client(dd: ModuleType, scheduler: str | None, workers: int) -> Iterator[Any
         cluster.close()
 
 
-def _run(dd: ModuleType, client: Any, cells: list[Cell], datasets: dict[str, Dataset],
-         scoring: Scoring, time_limit: float | None, cache: EmbeddingCache | None,
-         stop: threading.Event) -> Iterator[CellResult]:
+def _run(
+    dd: ModuleType,
+    client: Any,
+    cells: list[Cell],
+    datasets: dict[str, Dataset],
+    scoring: Scoring,
+    execution: Execution,
+    known: dict[str, KnownFit],
+    stop: threading.Event,
+) -> Iterator[CellResult]:
     token = uuid.uuid4().hex[:8]  # two runs sharing a cluster must not share task names
-    held = {name: client.submit(_hold, datasets[name], key=f"foldbench-data-{name}-{token}", pure=False)
-            for name in dict.fromkeys(c.dataset for c in cells)}
-    parent_path = list(sys.path)
+    held = {
+        name: client.submit(_hold, datasets[name], key=f"foldbench-data-{name}-{token}", pure=False)
+        for name in dict.fromkeys(c.dataset for c in cells)
+    }
     waiting = list(reversed(cells))
     pending: dict[Any, Cell] = {}
 
     def submit(cell: Cell) -> None:
-        hit = cache.get(cell) if cache is not None else None
-        future = client.submit(_task, cell, held[cell.dataset], scoring,
-                               _KnownFit(hit) if hit is not None else None, time_limit, parent_path,
-                               key=f"foldbench-cell-{cell.method}-{cell.key}-{token}", pure=False)
+        future = client.submit(
+            _task,
+            cell,
+            held[cell.dataset],
+            scoring,
+            known.get(cell.key),
+            execution.time_limit,
+            execution.plugin_roots,
+            key=f"foldbench-cell-{cell.method}-{cell.key}-{token}",
+            pure=False,
+        )
         pending[future] = cell
 
     log.info("sending %d cells to the Dask scheduler %s", len(cells), client.scheduler.address)
@@ -169,7 +179,7 @@ def _run(dd: ModuleType, client: Any, cells: list[Cell], datasets: dict[str, Dat
             if stop.is_set():
                 client.cancel(list(pending))
                 for cell in [*pending.values(), *reversed(waiting)]:
-                    yield CellResult(cell, "interrupted", "stopped: the run was interrupted")
+                    yield CellResult(cell, CellStatus.INTERRUPTED, "stopped: the run was interrupted")
                 pending.clear()
                 waiting.clear()
                 return
@@ -200,37 +210,32 @@ def _collect(dd: ModuleType, future: Any, cell: Cell) -> CellResult:
     try:
         return future.result()
     except dd.KilledWorker as exc:
-        return CellResult(cell, "crashed",
-                          f"the worker process died each of the {exc.allowed_failures + 1} times it ran "
-                          "this cell (a crash such as os._exit or a segmentation fault, or an "
-                          "out-of-memory kill)")
+        return CellResult(
+            cell,
+            CellStatus.CRASHED,
+            f"the worker process died each of the {exc.allowed_failures + 1} times it ran "
+            "this cell (a crash such as os._exit or a segmentation fault, or an "
+            "out-of-memory kill)",
+        )
     except CancelledError as exc:
-        return CellResult(cell, "crashed", f"the Dask cluster dropped this cell: {_one_line(exc)}")
+        return CellResult(
+            cell, CellStatus.CRASHED, f"the Dask cluster dropped this cell: {exception_line(exc, 500)}"
+        )
     except Exception as exc:  # the task itself raised: report it, keep the run going
-        return CellResult(cell, "failed", _one_line(exc),
-                          detail="".join(traceback.format_exception(exc, limit=8)))
-
-
-def _one_line(exc: BaseException) -> str:
-    text = " ".join(str(exc).split()) or "(no message)"
-    return f"{type(exc).__name__}: {text}"[:500]
+        return CellResult(
+            cell,
+            CellStatus.FAILED,
+            exception_line(exc, 500),
+            detail="".join(traceback.format_exception(exc, limit=8)),
+        )
 
 
 # ---------------------------------------------------------------- on the worker
 
+
 def _hold(dataset: Dataset) -> Dataset:
     """Hand the dataset to the cluster as a task result, which it can rebuild if lost."""
     return dataset
-
-
-@dataclass(frozen=True)
-class _KnownFit:
-    """A cache hit found by the parent, shipped with the cell (answers like a cache)."""
-
-    entry: CacheEntry
-
-    def get(self, cell: Cell) -> CacheEntry:
-        return self.entry
 
 
 class _ThreadWarnings(logging.Handler):
@@ -246,18 +251,25 @@ class _ThreadWarnings(logging.Handler):
             self.lines.append(" ".join(record.getMessage().split())[:300])
 
 
-def _task(cell: Cell, dataset: Dataset, scoring: Scoring, known: _KnownFit | None,
-          time_limit: float | None, parent_path: list[str]) -> CellResult:
-    """Compute one cell on a worker, within its time limit."""
-    # Workers on the parent's filesystem find plug-ins where the parent does; elsewhere the
-    # entries do not exist and change nothing.
-    sys.path.extend(p for p in parent_path if p not in sys.path and os.path.isdir(p))
+def _task(
+    cell: Cell,
+    dataset: Dataset,
+    scoring: Scoring,
+    known: KnownFit | None,
+    time_limit: float | None,
+    roots: tuple[str, ...],
+) -> CellResult:
+    """Compute one cell on a worker, within its time limit.
+
+    Workers on the parent's filesystem find plug-ins in the suite's folders;
+    elsewhere those folders do not exist and change nothing.
+    """
     box: dict[str, Any] = {}
 
     def work() -> None:
         try:
             with threadpool_limits(limits=_TASK_THREADS):
-                box["result"] = compute_cell(cell, dataset, scoring, known)
+                box["result"] = compute_cell(cell, dataset, scoring, known, roots)
         except BaseException as exc:  # handed to the task's thread, which raises it to Dask
             box["error"] = exc
 
@@ -273,9 +285,10 @@ def _task(cell: Cell, dataset: Dataset, scoring: Scoring, known: _KnownFit | Non
     finally:
         root.removeHandler(collect)
     if worker.is_alive():
-        log.warning("cell %s overran its time limit; its fit goes on in the background until it ends",
-                    cell.key)
-        return CellResult(cell, "timeout", f"no result within the time limit of {time_limit:g} s")
+        log.warning(
+            "cell %s overran its time limit; its fit goes on in the background until it ends", cell.key
+        )
+        return CellResult(cell, CellStatus.TIMEOUT, f"no result within the time limit of {time_limit:g} s")
     if "error" in box:
         raise box["error"]
     result = box["result"]

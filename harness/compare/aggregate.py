@@ -1,0 +1,71 @@
+"""Seed aggregation: the one place where a configuration's seeds become a mean, a spread and an interval.
+
+The terminal table, ``summary.csv``, ``ranking.md`` and the report all read
+the frame :func:`aggregate` returns, so they cannot disagree.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from ..config import CellStatus, is_failure
+from ..metrics import MEASURES, measure_stem
+from ..run.folder import ID_COLUMNS, INFO_COLUMNS
+from .stats import bootstrap_interval
+
+#: A configuration: one dataset x method x parameter point (its seeds are pooled).
+CONFIG = ["dataset", "method", "params"]
+#: Measure columns that describe cost, not quality.
+COST_COLUMNS = ("fit_seconds", "fit_peak_mb")
+
+
+def measure_columns(scores: pd.DataFrame) -> list[str]:
+    """Measure columns of a scores table (values, not interval half-widths), cost columns included."""
+    skip = set(ID_COLUMNS) | set(INFO_COLUMNS) - set(COST_COLUMNS)
+    return [
+        c for c in scores.columns if c not in skip and not c.endswith("_ci95") and measure_stem(c) in MEASURES
+    ]
+
+
+def aggregate(scores: pd.DataFrame, *, level: float = 0.95, seed: int = 0) -> pd.DataFrame:
+    """Mean, spread and interval of every measure over the seeds of each configuration.
+
+    Parameters
+    ----------
+    scores : DataFrame
+        A row per cell (``RunFolder.scores``).
+    level : float
+        Coverage of the interval of the mean.
+    seed : int
+        Seed of the interval's resampling, so the same scores always give the same interval.
+
+    Returns
+    -------
+    DataFrame
+        One row per ``dataset, method, params`` in order of first appearance, with
+        ``seeds_ok`` and ``seeds_failed`` (cells meant to run that did not
+        finish ok), then per measure ``m``: ``m`` (mean over the ok seeds),
+        ``m_sd`` (sample standard deviation, ddof = 1), ``m_lo`` and ``m_hi``
+        (the interval of the mean; NaN with fewer than two seeds).
+    """
+    cols = measure_columns(scores)
+    rows = []
+    for key, group in scores.groupby(CONFIG, sort=False):
+        row: dict[str, object] = dict(zip(CONFIG, key))
+        ok = group[group["status"] == CellStatus.OK]
+        row["seeds_ok"] = len(ok)
+        row["seeds_failed"] = int(group["status"].map(is_failure).sum())
+        for m in cols:
+            values = pd.to_numeric(ok[m], errors="coerce").to_numpy(dtype=float)
+            finite = values[np.isfinite(values)]
+            row[m] = float(finite.mean()) if finite.size else math.nan
+            row[f"{m}_sd"] = float(finite.std(ddof=1)) if finite.size > 1 else math.nan
+            row[f"{m}_lo"], row[f"{m}_hi"] = bootstrap_interval(finite, level=level, seed=seed)
+        rows.append(row)
+    columns = [*CONFIG, "seeds_ok", "seeds_failed"] + [
+        f"{m}{s}" for m in cols for s in ("", "_sd", "_lo", "_hi")
+    ]
+    return pd.DataFrame(rows, columns=columns)

@@ -1,0 +1,151 @@
+"""Compute one cell: fit its method (or take a known fit), check the embedding, score it.
+
+Both functions are pure: they read nothing but their arguments and write
+nothing, and a method's failure becomes a result with a status, never an
+exception.  Backends decide where they run; the cache is consulted by the
+caller, which passes a known fit in.
+"""
+
+from __future__ import annotations
+
+import time
+import traceback
+
+import numpy as np
+
+from ..config import CellStatus, Scoring
+from ..datasets import Dataset
+from ..methods import DegenerateEmbedding, fit_embedding, get_method_spec
+from ..metrics import score
+from ..text import exception_line
+from .cells import Cell, CellResult, KnownFit
+
+#: Frames of a traceback kept in a failed cell's ``detail``.
+TRACE_FRAMES = 8
+
+
+class _PeakMeter:
+    """Peak resident memory added during a block, from Linux's /proc (VmHWM)."""
+
+    def __enter__(self) -> _PeakMeter:
+        self.base = _rss_kib("VmRSS")
+        self._reset_ok = _reset_peak()
+        self.peak_mb = float("nan")
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        peak = _rss_kib("VmHWM")
+        if self._reset_ok and peak is not None and self.base is not None:
+            self.peak_mb = max(0.0, (peak - self.base) / 1024.0)
+
+
+def _rss_kib(field: str) -> float | None:
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith(field + ":"):
+                    return float(line.split()[1])
+    except OSError:
+        return None
+    return None
+
+
+def _reset_peak() -> bool:
+    try:
+        with open("/proc/self/clear_refs", "w", encoding="ascii") as fh:
+            fh.write("5")
+        return True
+    except OSError:
+        return False
+
+
+def compute_cell(
+    cell: Cell, dataset: Dataset, scoring: Scoring, known: KnownFit | None = None, roots: tuple[str, ...] = ()
+) -> CellResult:
+    """Fit the cell's method on its dataset (or use ``known``), check the embedding, score it.
+
+    Parameters
+    ----------
+    cell : Cell
+        What to compute.
+    dataset : Dataset
+        The cell's dataset.
+    scoring : Scoring
+        Measure settings of the suite.
+    known : KnownFit, optional
+        An earlier fit of the same cell; it is scored instead of fitting again.
+    roots : tuple of str
+        Folders a plug-in method may be imported from (the suite's).
+
+    Returns
+    -------
+    CellResult
+        Status ``ok`` with values, or ``failed`` with the error text; never raises
+        for a problem of the method or its output.
+    """
+    if known is not None:
+        result = score_cell(cell, dataset, known.embedding, scoring)
+        result.fit_seconds, result.fit_peak_mb, result.from_cache = known.fit_seconds, known.fit_peak_mb, True
+        return result
+    try:
+        spec = get_method_spec(cell.use, roots=roots)
+        with _PeakMeter() as meter:
+            t0 = time.perf_counter()
+            Y = fit_embedding(spec, dataset, cell.dimensions, cell.params_dict(), cell.seed)
+            fit_seconds = time.perf_counter() - t0
+    except DegenerateEmbedding as exc:
+        return CellResult(cell, CellStatus.FAILED, f"degenerate embedding: {exc.reason}")
+    except MemoryError:
+        return CellResult(
+            cell,
+            CellStatus.FAILED,
+            "MemoryError: the fit ran out of memory",
+            detail=traceback.format_exc(limit=TRACE_FRAMES),
+        )
+    except Exception as exc:  # a method may raise anything; the run must go on
+        return CellResult(
+            cell, CellStatus.FAILED, exception_line(exc, 500), detail=traceback.format_exc(limit=TRACE_FRAMES)
+        )
+    result = score_cell(cell, dataset, Y, scoring)
+    result.fit_seconds = fit_seconds
+    result.fit_peak_mb = meter.peak_mb
+    return result
+
+
+def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) -> CellResult:
+    """Score a finished embedding (a new fit or a known one)."""
+    data = dataset.distances if dataset.is_precomputed else dataset.X
+    t0 = time.perf_counter()
+    try:
+        measured = score(
+            data,
+            Y,
+            ks=list(scoring.ks),
+            metric="precomputed" if dataset.is_precomputed else "euclidean",
+            labels=dataset.labels,
+            latent=dataset.latent,
+            seed=scoring.seed,
+            pair_sample_above=scoring.pair_sample_above,
+            n_pairs=scoring.pairs,
+            estimate_above=scoring.estimate_above,
+            n_queries=scoring.queries,
+            memory_bytes=scoring.memory_bytes,
+        )
+    except Exception as exc:  # report, never crash the run over one cell's score
+        return CellResult(
+            cell,
+            CellStatus.FAILED,
+            f"scoring: {exception_line(exc, 490)}",
+            embedding=Y,
+            detail=traceback.format_exc(limit=TRACE_FRAMES),
+        )
+    return CellResult(
+        cell,
+        CellStatus.OK,
+        embedding=Y,
+        values=dict(measured.values),
+        halfwidths=dict(measured.halfwidths),
+        estimated=tuple(sorted(measured.estimated)),
+        curve=measured.curve,
+        score_seconds=time.perf_counter() - t0,
+    )

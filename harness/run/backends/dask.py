@@ -35,7 +35,7 @@ from ...errors import InputError
 from ...text import exception_line
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
-from . import Execution
+from ._base import Execution
 
 log = logging.getLogger(__name__)
 

@@ -36,7 +36,7 @@ from ...config import CellStatus, Scoring
 from ...datasets import Dataset
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
-from . import Execution
+from ._base import Execution
 
 log = logging.getLogger(__name__)
 

@@ -67,11 +67,13 @@ def positive_int(value: int | None, flag: str) -> None:
 _SYSTEM_ROOTS = (Path("/proc"), Path("/sys"), Path("/dev"))
 
 
-def writable_folder(path: str | Path, flag: str, *, create: bool = True) -> Path:
-    """Check, before any work, that ``path`` is a folder the command can write in.
+def writable_folders(*folders: tuple[str | Path, str, bool]) -> None:
+    """Check, before any work, that each ``(path, flag, create)`` is a folder the command can write in.
 
-    Creates the folder (``create``) when it does not exist yet, then writes and
-    removes an empty probe file inside it.  Nothing is written anywhere else.
+    First every path is checked for what it is (so a bad one is refused before
+    any other folder is created), then each missing one is created when
+    ``create`` allows and an empty probe file is written and removed inside
+    it.  Nothing is written anywhere else.
 
     Raises
     ------
@@ -80,7 +82,21 @@ def writable_folder(path: str | Path, flag: str, *, create: bool = True) -> Path
         missing folder when ``create`` is false, or a folder that cannot be
         written (read-only, no permission, ...).
     """
-    p = Path(path)
+    for path, flag, create in folders:
+        _folder_kind(Path(path), flag, create)
+    for path, flag, _create in folders:
+        p = Path(path)
+        try:
+            p.mkdir(parents=True, exist_ok=True)
+            fd, probe = tempfile.mkstemp(prefix=".foldbench-probe-", dir=p)
+            os.close(fd)
+            os.unlink(probe)
+        except OSError as exc:
+            problem = exc.strerror or str(exc)
+            raise InputError(flag, f"expected a folder it can write in, {p} is not ({problem})") from None
+
+
+def _folder_kind(p: Path, flag: str, create: bool) -> None:
     real = p.resolve()
     if any(real == root or root in real.parents for root in _SYSTEM_ROOTS):
         raise InputError(flag, f"expected a folder on disk, got {p}, a path of the running system ({real})")
@@ -89,13 +105,9 @@ def writable_folder(path: str | Path, flag: str, *, create: bool = True) -> Path
         raise InputError(flag, f"expected a folder, but {p} is {kind}")
     if not p.exists() and not create:
         raise InputError(flag, f"expected an existing folder, {p} does not exist")
-    try:
-        p.mkdir(parents=True, exist_ok=True)
-        fd, probe = tempfile.mkstemp(prefix=".foldbench-probe-", dir=p)
-        os.close(fd)
-        os.unlink(probe)
-    except OSError as exc:
-        raise InputError(
-            flag, f"expected a folder it can write in, {p} is not ({exc.strerror or exc})"
-        ) from None
-    return p
+
+
+def writable_folder(path: str | Path, flag: str, *, create: bool = True) -> Path:
+    """:func:`writable_folders` for one folder; returns it."""
+    writable_folders((path, flag, create))
+    return Path(path)

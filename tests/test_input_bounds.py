@@ -26,7 +26,7 @@ import pytest
 
 from harness.cli import main
 from harness.compare.environment import environment_changes
-from harness.config import MAX_SEEDS, MAX_SUITE_BYTES, MAX_YAML_NODES, Scoring
+from harness.config import MAX_EXPECT, MAX_SEEDS, MAX_SUITE_BYTES, MAX_YAML_NODES, Scoring
 from harness.datasets import DATASETS, Dataset
 from harness.methods._fit import DegenerateEmbedding, check_embedding
 from harness.run.cells import Cell
@@ -139,6 +139,14 @@ CASES = [
         [],
     ),
     ("expect-entries", "suite.yaml", None, None, ["validate"], 2, [f"at most {MAX_SUITE_BYTES:,} bytes"], []),
+    (
+        "expect-entries-over-count",
+        *_suite(SMALL + "expect:\n" + "  - {measure: stress, at_most: 1}\n" * (MAX_EXPECT + 1)),
+        ["validate"],
+        2,
+        ["expect", f"at most {MAX_EXPECT:,} bounds"],
+        [],
+    ),
     (
         "alias-bomb-description",
         *_suite(SMALL + f"description: {BOMB}\n"),

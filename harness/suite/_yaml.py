@@ -24,7 +24,7 @@ _BASE: type = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 _MERGE_TAG = "tag:yaml.org,2002:merge"
 
 
-class _BoundedLoader(_BASE):  # type: ignore[misc, valid-type]
+class _BoundedLoader(_BASE):
     """Safe loader that refuses a key repeated within one mapping."""
 
     def construct_mapping(self, node: Node, deep: bool = False) -> Any:

@@ -585,3 +585,16 @@ def test_blas_libraries_compare_as_a_set():
     assert environment_changes(one, other) == []
     newer = {"environment": {"blas": [dict(numpy_blas, version="0.3.32"), scipy_blas, openmp]}}
     assert environment_changes(one, newer) == ["openblas 0.3.30, 0.3.31.188.0 → 0.3.31.188.0, 0.3.32"]
+
+
+def test_sys_exit_while_a_command_runs_is_one_line(tmp_path, monkeypatch, capsys):
+    """Code a command runs (a plug-in, say) calling sys.exit(7): exit 2 and one line, not a silent 7."""
+    import harness.suite
+
+    def exits(_path):
+        sys.exit(7)
+
+    monkeypatch.setattr(harness.suite, "load_suite", exits)
+    (tmp_path / "suite.yaml").write_text(OK_SUITE)
+    code, lines, err = _run(["validate", str(tmp_path / "suite.yaml")], capsys)
+    assert code == 2 and "Traceback" not in err and len(lines) == 1 and "sys.exit(7)" in lines[0], err

@@ -92,3 +92,59 @@ class RunSettings:
     quadratic_limit: int = 20_000
     backend: str = "local"
     scheduler: str | None = None
+
+
+# ---------------------------------------------------------------- input bounds
+# Every size in a suite that makes the program allocate is checked against these
+# before anything is built (docs/notes/validation.md lists them).
+
+#: Largest suite file read, in bytes (a suite is a page of settings, not data).
+MAX_SUITE_BYTES = 2_000_000
+#: Most YAML nodes in a suite, counting every node an alias repeats.
+MAX_YAML_NODES = 200_000
+#: Most seeds per suite.
+MAX_SEEDS = 1000
+#: Largest seed: the methods hand seeds to NumPy's legacy generator, which takes 0 .. 2**32 - 1.
+MAX_SEED = 2**32 - 1
+#: Most grid points per method.
+MAX_GRID_POINTS = 10_000
+#: Most cells per suite (datasets x grid points x seeds).
+MAX_CELLS = 100_000
+#: Most entries in a suite's ``expect`` list.
+MAX_EXPECT = 10_000
+#: Share of the usable memory one generated dataset may take while it is built.
+DATASET_MEMORY_SHARE = 0.5
+
+
+def usable_memory_bytes() -> int | None:
+    """Memory this process may still use: the smaller of free RAM and the address-space limit left.
+
+    ``None`` when neither is known (not Linux).
+    """
+    import resource
+
+    known: list[int] = []
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    known.append(int(line.split()[1]) * 1024)
+                    break
+    except (OSError, ValueError, IndexError):
+        pass
+    soft, _hard = resource.getrlimit(resource.RLIMIT_AS)
+    if soft != resource.RLIM_INFINITY:
+        known.append(max(0, soft - _address_space_in_use()))
+    return min(known) if known else None
+
+
+def _address_space_in_use() -> int:
+    """Virtual memory this process already maps (what RLIMIT_AS counts), in bytes."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("VmSize:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    return 0

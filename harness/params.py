@@ -7,6 +7,7 @@ downstream trusts the result.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
@@ -71,6 +72,8 @@ class Param:
                 break
         if not ok:
             raise InputError(where, f"expected {self.type_name()}, got {value!r}")
+        if isinstance(value, float) and not math.isfinite(value):
+            raise InputError(where, f"expected a finite number, got {value!r}")
         if self.choices is not None and value not in self.choices:
             allowed = ", ".join(map(str, self.choices))
             raise InputError(

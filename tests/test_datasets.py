@@ -557,7 +557,10 @@ def test_distance_matrix_error_counts_lines_after_header(tmp_path, distances):
 def test_distance_matrix_numeric_header_gets_a_hint(tmp_path, distances):
     path = tmp_path / "dist.csv"
     pd.DataFrame(distances).to_csv(path, index=False)
-    with pytest.raises(InputError, match=r"dist\.csv: a square matrix .*got 10 x 9 \(a header of numbers"):
+    with pytest.raises(
+        InputError,
+        match=r"dist\.csv: a square matrix .*got 10 x 9 \(the first row looks like a header of numbers",
+    ):
         load_dataset("distance_matrix", {"path": str(path)})
 
 

@@ -81,7 +81,7 @@ def test_a_dying_or_failing_worker_costs_only_its_cell(tmp_path, plugin, status,
 
 def test_degenerate_embedding_is_a_failed_cell(tmp_path):
     suite = suite_file(
-        tmp_path, "  - use: runner_plugins:Noisy\n    name: flat\n    params: {noise: .nan}\n", seeds=1
+        tmp_path, "  - use: runner_plugins:Noisy\n    name: flat\n    params: {noise: 1.0e+308}\n", seeds=1
     )
     outcome = run_suite(suite, tmp_path / "out", jobs=1)
     s = outcome.scores

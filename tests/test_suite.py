@@ -78,7 +78,7 @@ BAD = [
         "suite.yaml: methods[1].grid.perplexty",
         "did you mean 'perplexity'",
     ),
-    ("k: [5, 10]", "k: [5, 149]", "suite.yaml: measures.k[1]", "k < n - 1"),
+    ("k: [5, 10]", "k: [5, 149]", "suite.yaml: measures.k[1]", "k < n/2"),
     ("k: [5, 10]", "k: [5, 0]", "suite.yaml: measures.k[1]", ">= 1"),
     ("seeds: 2", "seeds: 2\ndimensions: 5", "suite.yaml: dimensions", "at most 4"),
     ("params: {n: 200}", "params: {n: -5}", "suite.yaml: datasets[1].params.n", "got -5"),

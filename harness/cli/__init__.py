@@ -17,7 +17,7 @@ import sys
 from ..config import foldbench_version
 from ..errors import InputError
 from . import cache, results, run, suites
-from ._base import EXIT_INPUT, EXIT_INTERRUPTED, EXIT_OK, Command, Parser
+from ._base import EXIT_FAILED, EXIT_INPUT, EXIT_INTERRUPTED, EXIT_OK, Command, Parser
 
 #: Every command, in the order ``foldbench --help`` lists them.
 COMMANDS: list[Command] = [*run.COMMANDS, *suites.COMMANDS, *results.COMMANDS, *cache.COMMANDS]
@@ -51,7 +51,7 @@ def main(argv: list[str] | None = None) -> int:
             parser.print_help()
             return EXIT_INPUT
         handler: Command = args.handler
-        return handler.run(args)
+        return _guarded(handler, args)
     except InputError as err:
         print(f"foldbench: error: {err}", file=sys.stderr)
         return EXIT_INPUT
@@ -62,6 +62,39 @@ def main(argv: list[str] | None = None) -> int:
         # the reader went away (e.g. `foldbench list methods | head`): stop quietly
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return EXIT_OK
+
+
+def _guarded(handler: Command, args: argparse.Namespace) -> int:
+    """Run a command; the machine failing it (disk full, read-only, out of memory) is one line, exit 1.
+
+    A plug-in or library that calls ``sys.exit`` while a command runs is one
+    line and exit 2, not a silent exit with its code.
+    """
+    try:
+        return handler.run(args)
+    except SystemExit as exc:
+        print(
+            f"foldbench: error: code run by '{handler.name}' (a plug-in?) called sys.exit({exc.code}); "
+            "expected it to return or raise",
+            file=sys.stderr,
+        )
+        return EXIT_INPUT
+    except MemoryError:
+        print(
+            f"foldbench: error: '{handler.name}' ran out of memory; results already stored are kept",
+            file=sys.stderr,
+        )
+        return EXIT_FAILED
+    except (BrokenPipeError, InputError, KeyboardInterrupt):
+        raise
+    except OSError as exc:
+        where = f"{exc.filename}: " if exc.filename else "writing results: "
+        print(
+            f"foldbench: error: {where}{exc.strerror or exc} (a problem of this machine, not the input); "
+            "results already stored are kept",
+            file=sys.stderr,
+        )
+        return EXIT_FAILED
 
 
 __all__ = ["COMMANDS", "build_parser", "main"]

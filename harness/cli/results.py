@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 from ..errors import InputError
-from ._base import EXIT_FAILED, EXIT_OK, Command, positive_int
+from ._base import EXIT_FAILED, EXIT_OK, Command, positive_int, writable_folder
 
 
 def _level(value: float | None, flag: str) -> None:
@@ -27,6 +28,8 @@ def _report(args: argparse.Namespace) -> int:
     from ..report import write_report
 
     _level(args.alpha, "--alpha")
+    if Path(args.run_dir).is_dir():  # a missing or foreign folder is named by the report itself
+        writable_folder(args.run_dir, "RUN_DIR", create=False)
     print(f"Report: {write_report(args.run_dir, quality=args.quality, alpha=args.alpha)}")
     return EXIT_OK
 
@@ -69,6 +72,8 @@ def _rerun(args: argparse.Namespace) -> int:
     from ..compare.rerun import rerun_text
 
     positive_int(args.jobs, "--jobs")
+    if args.out:
+        writable_folder(args.out, "--out")
     outcome = rerun(args.run_dir, args.out, jobs=args.jobs)
     print(rerun_text(outcome))
     return EXIT_OK if outcome.reproduced else EXIT_FAILED

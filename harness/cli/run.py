@@ -11,7 +11,7 @@ from typing import Any
 
 from ..config import BACKEND_NAMES, is_failure
 from ..errors import InputError
-from ._base import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK, Command, positive_int
+from ._base import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK, Command, positive_int, writable_folders
 
 
 def _arguments(run: argparse.ArgumentParser) -> None:
@@ -60,6 +60,8 @@ def _checked(args: argparse.Namespace) -> None:
         raise InputError("--quadratic-limit", f"expected an integer >= 10, got {args.quadratic_limit}")
     if args.no_cache and args.cache:
         raise InputError("--no-cache", "expected either --cache DIR or --no-cache, not both")
+    folders = [(args.resume, "--resume", False) if args.resume else (args.out, "--out", True)]
+    writable_folders(*folders, *([(args.cache, "--cache", True)] if args.cache else []))
 
 
 def _suite(args: argparse.Namespace) -> Any:

@@ -60,15 +60,37 @@ def _paired(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[tuple[str, A
 
 
 def _blas(libs: Any) -> dict[str, Any]:
-    out: dict[str, Any] = {}
+    """Loaded BLAS / OpenMP libraries as a set keyed by library and API, not by load order.
+
+    Two copies of one library (NumPy's and SciPy's bundled OpenBLAS) load in
+    whichever order imports happen; each key holds the sorted set of values of
+    every copy, so the same environment always compares equal.
+    """
+    groups: dict[tuple[str, str], list[Mapping[str, Any]]] = {}
     for lib in libs or []:
-        name = lib.get("internal_api") or lib.get("user_api") or "library"
-        out[name] = lib.get("version")
-        out[f"{name} threads"] = lib.get("num_threads")
+        if not isinstance(lib, Mapping):
+            continue
+        internal = str(lib.get("internal_api") or lib.get("user_api") or "library")
+        groups.setdefault((internal, str(lib.get("user_api") or "")), []).append(lib)
+    internals = [internal for internal, _ in groups]
+    out: dict[str, Any] = {}
+    for (internal, user), members in sorted(groups.items()):
+        name = internal if internals.count(internal) == 1 else f"{internal} ({user or 'unknown API'})"
+        out[name] = _value_set(m.get("version") for m in members)
+        out[f"{name} threads"] = _value_set(m.get("num_threads") for m in members)
         for extra in ("threading_layer", "architecture"):
-            if lib.get(extra) is not None:
-                out[f"{name} {extra.replace('_', ' ')}"] = lib[extra]
+            values = _value_set(m.get(extra) for m in members)
+            if values is not None:
+                out[f"{name} {extra.replace('_', ' ')}"] = values
     return out
+
+
+def _value_set(values: Any) -> Any:
+    """The distinct values, sorted: one value as itself, several joined by ', ', none as None."""
+    distinct = sorted({str(v) for v in values if v is not None})
+    if not distinct:
+        return None
+    return distinct[0] if len(distinct) == 1 else ", ".join(distinct)
 
 
 def _text(value: Any) -> str:

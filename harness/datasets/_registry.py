@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -27,6 +27,10 @@ class DatasetSpec:
         One line for ``foldbench list datasets``.
     source : str
         Where the data or its construction comes from.
+    footprint : callable, optional
+        ``footprint(params) -> bytes``: memory the loader needs at its peak
+        while it builds the data, so a size too large for the machine is
+        refused before anything is allocated (generated datasets give one).
     """
 
     name: str
@@ -34,18 +38,24 @@ class DatasetSpec:
     params: tuple[Param, ...]
     description: str
     source: str = ""
+    footprint: Callable[[Mapping[str, Any]], int] | None = None
 
 
 DATASETS: dict[str, DatasetSpec] = {}
 
 
 def register_dataset(
-    name: str, *, params: tuple[Param, ...] = (), description: str, source: str = ""
+    name: str,
+    *,
+    params: tuple[Param, ...] = (),
+    description: str,
+    source: str = "",
+    footprint: Callable[[Mapping[str, Any]], int] | None = None,
 ) -> Callable[[Callable[..., Dataset]], Callable[..., Dataset]]:
     """Decorator that adds a loader to :data:`DATASETS`."""
 
     def wrap(fn: Callable[..., Dataset]) -> Callable[..., Dataset]:
-        DATASETS[name] = DatasetSpec(name, fn, tuple(params), description, source)
+        DATASETS[name] = DatasetSpec(name, fn, tuple(params), description, source, footprint)
         return fn
 
     return wrap

@@ -81,6 +81,8 @@ def operating_regime(load: np.ndarray, wear: np.ndarray) -> np.ndarray:
     description="invented demo: 12 sensor channels of machine tools driven by hidden load and wear; "
     "labels = operating regime",
     source="invented by foldbench (no measured data)",
+    # load, wear, 12 channels, their noise and the sum, latent, regime names: about 48 float64 values a row
+    footprint=lambda p: 8 * 48 * p["n"],
 )
 def machine_fleet(n: int = 600, noise: float = 1.0, seed: int = 0) -> Dataset:
     """Sensor snapshots from an invented fleet of machine tools.

@@ -82,11 +82,16 @@ def _row(i: int, fmt: str, header_lines: int = 1) -> str:
 
 
 def _read_npy(path: str) -> np.ndarray:
+    with open(path, "rb") as fh:
+        if fh.read(6) != b"\x93NUMPY":
+            raise InputError(path, "a NumPy .npy file; it does not start with the .npy header")
     arr = checked(
         lambda: np.load(path, allow_pickle=False), path, "a NumPy .npy array that loads without pickle"
     )
     if not isinstance(arr, np.ndarray):
         raise InputError(path, "a single array (.npy), not an archive")
+    if np.issubdtype(arr.dtype, np.complexfloating):
+        raise InputError(path, f"a real-valued array, got complex numbers (dtype {arr.dtype})")
     if not (np.issubdtype(arr.dtype, np.number) or arr.dtype == bool):
         raise InputError(path, f"a numeric array, got dtype {arr.dtype}")
     return arr
@@ -238,13 +243,15 @@ def _pick_columns(
             _numeric_column(df, col, path, fmt)
         ignored.append(col)
     if not chosen:
-        hint = (
-            f"; only one column was read, is the file separated by '{_SEPARATORS.get(fmt, '')}'?"
-            if df.shape[1] == 1 and fmt in _TEXT_FORMATS
-            else ""
-        )
+        if df.shape[1] == 1 and fmt in _TEXT_FORMATS:
+            # one column means this is probably not a table: its "header" is file content, not shown
+            raise InputError(
+                path,
+                "at least one numeric feature column; found none, and only one column was read: "
+                f"is this a table separated by '{_SEPARATORS[fmt]}' with a header row?",
+            )
         raise InputError(
-            path, f"at least one numeric feature column; found none (columns: {', '.join(columns)}){hint}"
+            path, f"at least one numeric feature column; found none (columns: {', '.join(columns)})"
         )
     if ignored:
         logger.info("%s: leaving out text columns %s", path, ", ".join(ignored))
@@ -357,8 +364,8 @@ def table(
         ignored: list[str] = []
     else:
         X, names, labels, ignored = _frame_features(path, fmt, features, label, min_rows)
-    if X.shape[0] == 0:
-        raise InputError(path, f"at least {min_rows} rows, found 0")
+    if X.shape[0] < min_rows:
+        raise InputError(path, f"at least {min_rows} rows (min_rows), found {X.shape[0]}")
     remedy = (
         "remove that column from the array"
         if fmt == "npy"
@@ -471,6 +478,8 @@ def _read_distance_text(path: str, fmt: str) -> tuple[np.ndarray, int]:
     cells = cells[header:]
     row_names = int(cells.shape[1] > 0 and not all(is_number_text(c) for c in cells[:, 0]))
     cells = cells[:, row_names:]
+    if cells.size == 0:
+        raise InputError(path, "a square matrix of numbers; no cell of numbers was found")
     D = np.empty(cells.shape, dtype=np.float64)
     for (i, j), c in np.ndenumerate(cells):
         try:
@@ -545,6 +554,14 @@ def distance_matrix(path: str | None = None, format: str = "auto", labels_path: 
     )
 
 
+def _is_distance_matrix(D: np.ndarray) -> bool:
+    """Square, finite, non-negative, symmetric with a zero diagonal (within the tolerance)."""
+    if D.ndim != 2 or D.shape[0] != D.shape[1] or not np.isfinite(D).all():
+        return False
+    tol = DISTANCE_TOLERANCE * float(np.abs(D).max(initial=0.0))
+    return bool((-tol <= D).all() and (np.abs(np.diag(D)) <= tol).all() and (np.abs(D - D.T) <= tol).all())
+
+
 def _checked_distances(D: np.ndarray, path: str, fmt: str, header: int) -> np.ndarray:
     def cell(i: int, j: int) -> str:
         return f"{_row(i, fmt, header)}, column {j + 1}"
@@ -552,7 +569,9 @@ def _checked_distances(D: np.ndarray, path: str, fmt: str, header: int) -> np.nd
     if D.ndim != 2 or D.shape[0] != D.shape[1]:
         shape = " x ".join(map(str, D.shape))
         hint = (
-            " (a header of numbers is read as data)" if D.ndim == 2 and D.shape[0] == D.shape[1] + 1 else ""
+            " (the first row looks like a header of numbers: the rows below it form a distance matrix)"
+            if D.ndim == 2 and D.shape[0] == D.shape[1] + 1 and _is_distance_matrix(D[1:])
+            else ""
         )
         raise InputError(path, f"a square matrix (n rows x n columns), got {shape}{hint}")
     if D.shape[0] < 3:
@@ -562,11 +581,12 @@ def _checked_distances(D: np.ndarray, path: str, fmt: str, header: int) -> np.nd
         raise InputError(
             path, f"finite distances; {len(bad)} cells hold NaN or inf, first at {cell(*bad[0])}"
         )
-    bad = np.argwhere(D < 0)
+    tol = DISTANCE_TOLERANCE * float(np.abs(D).max())
+    bad = np.argwhere(-tol > D)
     if bad.size:
         i, j = bad[0]
         raise InputError(path, f"non-negative distances; {cell(i, j)} holds {D[i, j]:g}")
-    tol = DISTANCE_TOLERANCE * float(D.max())
+    D = np.maximum(D, 0.0)
     off = np.flatnonzero(np.abs(np.diag(D)) > tol)
     if off.size:
         i = int(off[0])

@@ -108,6 +108,8 @@ def check_embedding(raw: Any, n: int, n_components: int, method: str = "", datas
 
     if hasattr(raw, "toarray"):
         raw = raw.toarray()
+    if np.iscomplexobj(raw):
+        raise fail("output holds complex numbers; expected real coordinates")
     try:
         Y = np.asarray(raw, dtype=np.float64)
     except (TypeError, ValueError) as exc:

@@ -17,6 +17,12 @@ SILHOUETTE_SAMPLE = 5000
 FOLDS = 5
 
 
+def _dropped(measure: str, reason: str) -> float:
+    """Log why a label measure is left out of this cell (it becomes NaN) and return NaN."""
+    log.warning("%s left out: %s", measure, reason)
+    return float("nan")
+
+
 def knn_accuracy(y: np.ndarray, labels: np.ndarray, k: int, seed: int) -> float:
     """Accuracy of a k-NN classifier in the embedding, stratified cross-validation.
 
@@ -24,17 +30,17 @@ def knn_accuracy(y: np.ndarray, labels: np.ndarray, k: int, seed: int) -> float:
     k-fold cross-validation (5 folds, shuffled with ``seed``; as many folds as
     the smallest class has members when that is fewer, at least 2).
 
-    Raises
-    ------
-    ValueError
-        When a class has a single member or a training fold has fewer than k points.
+    Returns NaN, with the reason logged as a warning (so it lands in the cell's
+    record), when the labels cannot support it: a class with a single member
+    or a training fold with fewer than k points.  The other measures of the
+    cell are kept.
     """
     _, counts = np.unique(labels, return_counts=True)
     folds = int(min(FOLDS, counts.min()))
     if folds < 2:
-        raise ValueError("knn_accuracy needs at least 2 members in every class")
+        return _dropped(f"knn_accuracy@{k}", f"a class has {int(counts.min())} member; every class needs 2")
     if len(labels) - int(np.ceil(len(labels) / folds)) < k:
-        raise ValueError(f"knn_accuracy@{k}: a training fold has fewer than {k} points")
+        return _dropped(f"knn_accuracy@{k}", f"a training fold has fewer than k={k} points")
     cv = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
     scores = cross_val_score(KNeighborsClassifier(n_neighbors=k), y, labels, cv=cv)
     return float(np.mean(scores))
@@ -44,7 +50,12 @@ def silhouette(y: np.ndarray, labels: np.ndarray, seed: int) -> float:
     """Mean silhouette width of the labels in the embedding (Rousseeuw 1987, scikit-learn).
 
     Above :data:`SILHOUETTE_SAMPLE` points, a seeded sample of that size is used.
+    NaN, with the reason logged, unless there are 2 to n - 1 distinct labels
+    (every point its own class, as for an id column, leaves it undefined).
     """
     n = len(labels)
+    n_classes = len(np.unique(labels))
+    if not 2 <= n_classes <= n - 1:
+        return _dropped("silhouette", f"needs 2 to n-1 = {n - 1} distinct labels, got {n_classes}")
     size = SILHOUETTE_SAMPLE if n > SILHOUETTE_SAMPLE else None
     return float(silhouette_score(y, labels, sample_size=size, random_state=seed))

@@ -14,12 +14,12 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-import yaml
-
+from ..config import MAX_SUITE_BYTES
 from ..errors import InputError
 from ..text import show
 from . import _sections as sections
 from ._read import integer, mapping, no_unknown, parse_size, plain_name
+from ._yaml import read_yaml
 from .data import load_datasets
 from .expect import Expectation, parse_expectations
 from .model import DatasetEntry, MethodEntry, Suite
@@ -49,16 +49,6 @@ _SUITE_KEYS = (
     "expect",
     "tolerances",
 )
-
-
-def _yaml(text: str, label: str) -> Any:
-    try:
-        return yaml.safe_load(text)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        at = f" line {mark.line + 1}, column {mark.column + 1}" if mark else ""
-        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-        raise InputError(f"{label}:{at}".rstrip(":"), f"expected valid YAML ({problem})") from None
 
 
 def _document(doc: Any) -> Mapping[str, Any]:
@@ -100,7 +90,7 @@ def parse_suite(text: str, path: str = "<suite>", *, resolve_plugins: bool = Tru
     base = Path(path).resolve().parent if path != "<suite>" else Path.cwd()
     roots = tuple(dict.fromkeys([str(Path.cwd()), str(base)]))
     try:
-        doc = _document(_yaml(text, label))
+        doc = _document(read_yaml(text))
         datasets = sections.dataset_entries(doc["datasets"], "datasets", base)
         methods = sections.method_entries(doc["methods"], "methods", roots, resolve_plugins=resolve_plugins)
         scoring = sections.scoring(doc.get("measures"), "measures")
@@ -111,10 +101,12 @@ def parse_suite(text: str, path: str = "<suite>", *, resolve_plugins: bool = Tru
             methods=[m.name for m in methods],
             ks=scoring.ks,
         )
+        seeds = sections.seeds(doc.get("seeds"), "seeds")
+        sections.cell_count(datasets, methods, seeds)
         return Suite(
             name=plain_name(doc["name"], "name"),
             description=doc.get("description", ""),
-            seeds=sections.seeds(doc.get("seeds"), "seeds"),
+            seeds=seeds,
             dimensions=integer(doc.get("dimensions", 2), "dimensions", low=1),
             datasets=datasets,
             methods=methods,
@@ -144,7 +136,13 @@ def load_suite(path: str | Path) -> Suite:
     """
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        with p.open("rb") as fh:
+            raw = fh.read(MAX_SUITE_BYTES + 1)
+        if len(raw) > MAX_SUITE_BYTES:
+            raise InputError(
+                str(p), f"expected a suite of at most {MAX_SUITE_BYTES:,} bytes; this file is longer"
+            )
+        text = raw.decode("utf-8")
     except FileNotFoundError:
         raise InputError(str(p), "no such file: expected a suite (YAML)") from None
     except (OSError, UnicodeDecodeError) as exc:

@@ -7,7 +7,7 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-from ..config import BACKEND_NAMES, RunSettings, Scoring
+from ..config import BACKEND_NAMES, MAX_CELLS, MAX_GRID_POINTS, MAX_SEED, MAX_SEEDS, RunSettings, Scoring
 from ..datasets import get_dataset_spec
 from ..errors import InputError, suggest
 from ..methods import MethodSpec, get_method_spec
@@ -28,13 +28,40 @@ def seeds(raw: Any, where: str) -> tuple[int, ...]:
     if raw is None:
         return (0, 1, 2)
     if isinstance(raw, int) and not isinstance(raw, bool):
-        return tuple(range(integer(raw, where, low=1)))
-    out = tuple(integer(v, f"{where}[{i}]", low=0) for i, v in enumerate(listed(raw, where, "seeds")))
+        count = integer(raw, where, low=1)
+        if count > MAX_SEEDS:
+            raise InputError(where, f"expected at most {MAX_SEEDS} seeds, got {count}")
+        return tuple(range(count))
+    raw = listed(raw, where, "seeds")
+    if len(raw) > MAX_SEEDS:
+        raise InputError(where, f"expected at most {MAX_SEEDS} seeds, got a list of {len(raw)}")
+    out = tuple(integer(v, f"{where}[{i}]", low=0) for i, v in enumerate(raw))
+    for i, seed in enumerate(out):
+        if seed > MAX_SEED:
+            raise InputError(
+                f"{where}[{i}]",
+                f"expected a seed from 0 to 2**32 - 1 = {MAX_SEED} (NumPy's range), got {seed}",
+            )
     if not out:
         raise InputError(where, "expected at least one seed")
     if len(set(out)) != len(out):
         raise InputError(where, f"expected distinct seeds, got {list(out)}")
     return out
+
+
+def cell_count(
+    datasets: tuple[DatasetEntry, ...], methods: tuple[MethodEntry, ...], seeds: tuple[int, ...]
+) -> int:
+    """Datasets x grid points x seeds, refused above :data:`~harness.config.MAX_CELLS` before any is made."""
+    points = sum(math.prod(len(v) for v in m.grid.values()) for m in methods)
+    cells = len(datasets) * points * len(seeds)
+    if cells > MAX_CELLS:
+        raise InputError(
+            "seeds",
+            f"expected at most {MAX_CELLS:,} cells (datasets x grid points x seeds), got "
+            f"{len(datasets)} x {points} x {len(seeds)} = {cells:,}",
+        )
+    return cells
 
 
 def _entry(
@@ -105,6 +132,11 @@ def method_entries(
         spec = get_method_spec(use, f"{at}.use", roots=roots)
         params = validate_params(item.get("params"), spec.params, f"{at}.params", fill_defaults=False)
         grid = _grid(item.get("grid"), spec, params, f"{at}.grid")
+        points = math.prod(len(v) for v in grid.values())
+        if points > MAX_GRID_POINTS:
+            raise InputError(
+                f"{at}.grid", f"expected at most {MAX_GRID_POINTS:,} grid points, got {points:,} combinations"
+            )
         out.append(MethodEntry(name, use, params, grid, spec.family))
     unique_names([m.name for m in out], where)
     return tuple(out)

@@ -2,10 +2,16 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from pathlib import Path
+from typing import Any
 
-from ..datasets import Dataset, load_dataset
+import numpy as np
+
+from ..config import DATASET_MEMORY_SHARE, usable_memory_bytes
+from ..datasets import Dataset, get_dataset_spec, load_dataset
 from ..errors import InputError
+from ..text import show
 from .model import Suite
 
 
@@ -23,6 +29,8 @@ def load_datasets(suite: Suite) -> dict[str, Dataset]:
     label = Path(suite.path).name
     data: dict[str, Dataset] = {}
     for i, entry in enumerate(suite.datasets):
+        _check_footprint(entry.use, entry.params, f"{label}: datasets[{i}].params")
+    for i, entry in enumerate(suite.datasets):
         try:
             data[entry.name] = load_dataset(entry.use, dict(entry.params), label=entry.name)
         except InputError as err:
@@ -32,13 +40,60 @@ def load_datasets(suite: Suite) -> dict[str, Dataset]:
     return data
 
 
+def _check_labels(labels: Any, which: str, label: str) -> None:
+    """Refuse labels no label measure can use: a class of one member, or one class per row (an id)."""
+    classes, counts = np.unique(np.asarray(labels), return_counts=True)
+    n = len(labels)
+    if classes.size == n:
+        raise InputError(
+            f"{label}: {which} labels",
+            f"expected class labels shared by several rows; all {n} rows have different labels "
+            "(an id column?); name a column of classes, or none",
+        )
+    if counts.min() < 2:
+        lonely = classes[counts < 2]
+        raise InputError(
+            f"{label}: {which} labels",
+            "expected at least 2 rows in every class (k-NN accuracy is cross-validated); "
+            f"{lonely.size} class{'es' * (lonely.size != 1)} with a single row, "
+            f"first {show(lonely[0].item())}",
+        )
+
+
+def _check_footprint(use: str, params: Mapping[str, Any], where: str) -> None:
+    """Refuse a generated dataset whose construction would not fit in memory, before it is built."""
+    spec = get_dataset_spec(use)
+    if spec.footprint is None:
+        return
+    need = spec.footprint(params)
+    usable = usable_memory_bytes()
+    if usable is None:
+        return
+    budget = int(usable * DATASET_MEMORY_SHARE)
+    if need > budget:
+        sizes = ", ".join(f"{k}={params[k]:,}" for k in ("n", "n_features") if isinstance(params.get(k), int))
+        raise InputError(
+            where,
+            f"expected a dataset that fits in memory: {sizes} needs about {_gib(need)} while it is "
+            f"built, {_gib(budget)} allowed ({DATASET_MEMORY_SHARE:.0%} of the {_gib(usable)} this "
+            "process may use); choose a smaller n",
+        )
+
+
+def _gib(size: float) -> str:
+    return f"{size / 2**30:,.1f} GiB" if size >= 2**27 else f"{size / 2**20:,.0f} MiB"
+
+
 def _check_against(suite: Suite, ds: Dataset, which: str, label: str) -> None:
     n = ds.n
     for j, k in enumerate(suite.scoring.ks):
-        if k >= n - 1:
+        # the trustworthiness normaliser 2 / (n k (2n - 3k - 1)) keeps values in [0, 1] only for k < n/2
+        if k >= n / 2:
             raise InputError(
-                f"{label}: measures.k[{j}]", f"expected k < n - 1 = {n - 1} for {which} with n={n}, got {k}"
+                f"{label}: measures.k[{j}]", f"expected k < n/2 = {n / 2:g} for {which} with n={n}, got {k}"
             )
+    if ds.labels is not None:
+        _check_labels(ds.labels, which, label)
     if ds.n_features is not None and suite.dimensions > ds.n_features:
         raise InputError(
             f"{label}: dimensions",

@@ -18,6 +18,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
+from ..config import MAX_EXPECT
 from ..errors import InputError, suggest
 from ..text import format_value, key_text, show
 from ._read import is_number, measure_key, with_k
@@ -118,6 +119,8 @@ def parse_expectations(
         return ()
     if not isinstance(raw, list):
         raise InputError(where, f"expected a list of bounds, got {show(raw)}")
+    if len(raw) > MAX_EXPECT:
+        raise InputError(where, f"expected at most {MAX_EXPECT:,} bounds, got {len(raw):,}")
     out = []
     for i, item in enumerate(raw):
         at = f"{where}[{i}]"

@@ -47,7 +47,8 @@ def table_suite_text(name: str, path: Path, label: str | None, n: int) -> str:
     label_line = f", label: {label!r}" if label else ""
     perplexity = max(2, min(30, (n - 1) // 3 - 1))
     neighbours = max(2, min(10, n - 2))
-    k = max(1, min(10, n - 3))
+    # measures need k < n/2 (the trustworthiness normaliser); the table loader accepts n >= 10
+    k = max(1, min(10, (n - 1) // 2))
     quadratic = "" if n > 3000 else "  - use: mds\n  - use: sammon\n"
     return (
         f"name: {name}\nseeds: 3\ndimensions: 2\n"

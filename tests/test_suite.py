@@ -111,18 +111,23 @@ def test_bad_suite_names_place_and_expectation(tmp_path, old, new, words, where)
 
 
 @pytest.mark.parametrize(
-    "text,words",
+    "text,where,words",
     [
-        ("name: x\ndatasets: [iris\n", "expected valid YAML"),
-        ("- just\n- a list\n", "expected a mapping"),
-        ("name: x\nmethods: [pca]\n", "datasets: missing"),
-        ("", "expected a mapping"),
+        # the file is named once, then the position of the YAML error
+        ("name: x\ndatasets: [iris\n", "broken.yaml: line 3, column 1", "expected valid YAML"),
+        ("\x1f", "broken.yaml", "expected valid YAML"),
+        ("- just\n- a list\n", "broken.yaml", "expected a mapping"),
+        ("name: x\nmethods: [pca]\n", "broken.yaml: datasets", "missing"),
+        ("", "broken.yaml", "expected a mapping"),
+        # an empty or odd key is quoted, so the message still says which key
+        ("? ''\n: 1\nname: x\n", "broken.yaml: ''", "unknown key"),
+        ("name: x\n.hidden: 1\n", "broken.yaml: .hidden", "unknown key"),
     ],
 )
-def test_malformed_documents(text, words):
+def test_malformed_documents(text, where, words):
     with pytest.raises(InputError) as info:
         parse_suite(text, "broken.yaml")
-    assert str(info.value).startswith("broken.yaml")
+    assert info.value.where == where, str(info.value)
     assert words in str(info.value)
 
 

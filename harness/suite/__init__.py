@@ -51,14 +51,14 @@ _SUITE_KEYS = (
 )
 
 
-def _yaml(text: str, label: str) -> Any:
+def _yaml(text: str) -> Any:
     try:
         return yaml.safe_load(text)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         at = f" line {mark.line + 1}, column {mark.column + 1}" if mark else ""
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-        raise InputError(f"{label}:{at}".rstrip(":"), f"expected valid YAML ({problem})") from None
+        raise InputError(at.strip(), f"expected valid YAML ({problem})") from None
 
 
 def _document(doc: Any) -> Mapping[str, Any]:
@@ -100,7 +100,7 @@ def parse_suite(text: str, path: str = "<suite>", *, resolve_plugins: bool = Tru
     base = Path(path).resolve().parent if path != "<suite>" else Path.cwd()
     roots = tuple(dict.fromkeys([str(Path.cwd()), str(base)]))
     try:
-        doc = _document(_yaml(text, label))
+        doc = _document(_yaml(text))
         datasets = sections.dataset_entries(doc["datasets"], "datasets", base)
         methods = sections.method_entries(doc["methods"], "methods", roots, resolve_plugins=resolve_plugins)
         scoring = sections.scoring(doc.get("measures"), "measures")

@@ -223,17 +223,13 @@ def test_importing_the_package_does_not_import_dask():
 
 
 @pytest.mark.slow
-def test_the_command_line_runs_a_suite_on_a_cluster(cluster, tmp_path):
+def test_the_command_line_runs_a_suite_on_a_cluster(cluster, tmp_path, write_suite, two_datasets):
     import pandas as pd
 
     from harness.cli import main
 
-    suite = tmp_path / "onc.yaml"
-    suite.write_text(
-        "name: onc\nseeds: 2\ndatasets:\n  - use: iris\n  - use: rolled_sheet\n"
-        "    params: {n: 150}\nmethods:\n  - use: pca\n  - use: isomap\n"
-        "  - use: tsne\n    params: {perplexity: 10}\nmeasures:\n  k: [5, 10]\n"
-    )
+    methods = "  - use: pca\n  - use: isomap\n  - use: tsne\n    params: {perplexity: 10}\n"
+    suite = write_suite(two_datasets(methods, name="onc", k="[5, 10]"), "onc.yaml")
     address = cluster.scheduler_address
     for backend in (["--backend", "dask", "--scheduler", address], ["--backend", "local"]):
         code = main(

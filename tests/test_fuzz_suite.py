@@ -6,12 +6,28 @@ outcome is a validated suite or one line of InputError.
 
 from __future__ import annotations
 
+import re
+
 import yaml
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from harness.errors import InputError
 from harness.suite import Suite, load_datasets, parse_suite
+
+#: The top-level keys a suite may have (the suite format); every field path starts with one.
+SUITE_KEYS = {
+    "name",
+    "description",
+    "seeds",
+    "dimensions",
+    "datasets",
+    "methods",
+    "measures",
+    "run",
+    "expect",
+    "tolerances",
+}
 
 VALID = {
     "name": "fuzz",
@@ -69,6 +85,12 @@ KEYS = [
 ]
 
 
+#: Complaints about the document as a whole: the only ones allowed to name the file without a field.
+WHOLE_DOCUMENT = ("expected a mapping with keys", "expected text keys", "expected valid YAML")
+#: Where a YAML syntax error is: a position in the file stands for the field.
+POSITION = re.compile(r"line \d+, column \d+")
+
+
 def _outcome(text: str) -> None:
     try:
         suite = parse_suite(text, "fuzz.yaml")
@@ -76,8 +98,18 @@ def _outcome(text: str) -> None:
         load_datasets(suite)
     except InputError as err:
         message = str(err)
-        assert message.startswith("fuzz.yaml") or "fuzz.yaml" in message or err.where
         assert "\n" not in message
+        # "fuzz.yaml: <field>: <what was expected>": the file first, then the field, then the rest
+        assert message == f"{err.where}: {err.expected}", message
+        assert err.where.startswith("fuzz.yaml"), message
+        field = err.where.removeprefix("fuzz.yaml").removeprefix(": ")
+        if not field:
+            assert err.expected.startswith(WHOLE_DOCUMENT), message
+        elif not POSITION.fullmatch(field):
+            head = re.match(r"[^.\[]*", field).group(0)
+            # a key of the suite, or the unknown key the message is about
+            assert head in SUITE_KEYS or err.expected.startswith("unknown key"), message
+        assert err.expected, message
 
 
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])

@@ -1,4 +1,4 @@
-"""The report of a small real run: files, tables, page, figures (plumbing on invented data)."""
+"""The report of a small real run: files, tables, page, figures (plumbing on the shared small run)."""
 
 from __future__ import annotations
 
@@ -14,41 +14,17 @@ import pandas as pd
 import pytest
 from PIL import Image
 
-from harness.api import run_suite
 from harness.compare.stats import critical_difference
-from harness.report import FIGURES, write_report
+from harness.report import FIGURES
 from harness.report.analysis import analyse
 from harness.report.tables import best_mask, measure_table, tex_escape
 from harness.report.verdict import verdict
-from harness.suite import parse_suite
-
-SUITE = """
-name: tiny
-seeds: 2
-datasets:
-  - use: iris
-  - use: rolled_sheet
-    name: roll
-    params: {n: 150, noise: 0.05}
-methods:
-  - use: pca
-  - use: random_projection
-  - use: isomap
-    grid: {n_neighbors: [6, 12]}
-  - use: tsne
-    params: {perplexity: 10}
-measures:
-  k: [10]
-"""
 
 
 @pytest.fixture(scope="module")
-def run_dir(tmp_path_factory) -> Path:
-    out = tmp_path_factory.mktemp("runs")
-    outcome = run_suite(parse_suite(SUITE, str(out / "tiny.yaml")), out, jobs=2, isolate=True)
-    assert outcome.failed == 0
-    write_report(outcome.run_dir)
-    return outcome.run_dir
+def run_dir(small_run) -> Path:
+    """The shared small run (conftest.SMALL_SUITE: iris and roll, pca, random_projection, isomap, tsne)."""
+    return small_run
 
 
 @pytest.fixture(scope="module")
@@ -129,7 +105,10 @@ def test_latex_tables_use_booktabs(run_dir):
     tex = (run_dir / "tables.tex").read_text(encoding="utf-8")
     assert tex.count("\\toprule") == tex.count("\\midrule") == tex.count("\\bottomrule") > 2
     assert "\\textbf{" in tex and "$\\pm$" in tex
-    assert "±" not in tex and "laplacian_" not in tex
+    assert "±" not in tex
+    # method names with an underscore are written with TeX's escaped underscore, never bare
+    assert "random\\_projection" in tex
+    assert "random_projection" not in tex
 
 
 @pytest.mark.slow

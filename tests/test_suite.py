@@ -8,8 +8,6 @@ from __future__ import annotations
 
 import subprocess
 import sys
-import textwrap
-from pathlib import Path
 
 import pytest
 
@@ -34,14 +32,8 @@ measures:
 """
 
 
-def write(tmp_path: Path, text: str, name: str = "suite.yaml") -> Path:
-    path = tmp_path / name
-    path.write_text(textwrap.dedent(text))
-    return path
-
-
-def test_good_suite_parses_and_expands_grid(tmp_path):
-    suite = load_suite(write(tmp_path, GOOD))
+def test_good_suite_parses_and_expands_grid(write_suite):
+    suite = load_suite(write_suite(GOOD))
     assert suite.seeds == (0, 1)
     assert [d.name for d in suite.datasets] == ["iris", "roll"]
     assert [p["perplexity"] for p in suite.methods[1].grid_points()] == [5.0, 10.0]
@@ -99,9 +91,9 @@ BAD = [
 @pytest.mark.parametrize(
     "old,new,where,words", BAD, ids=[b[2].split(": ")[-1] + "-" + b[1][:12] for b in BAD]
 )
-def test_bad_suite_names_place_and_expectation(tmp_path, old, new, words, where):
+def test_bad_suite_names_place_and_expectation(write_suite, old, new, words, where):
     assert old in GOOD
-    path = write(tmp_path, GOOD.replace(old, new, 1))
+    path = write_suite(GOOD.replace(old, new, 1))
     with pytest.raises(InputError) as info:
         load_datasets(load_suite(path))
     message = str(info.value)
@@ -111,33 +103,38 @@ def test_bad_suite_names_place_and_expectation(tmp_path, old, new, words, where)
 
 
 @pytest.mark.parametrize(
-    "text,words",
+    "text,where,words",
     [
-        ("name: x\ndatasets: [iris\n", "expected valid YAML"),
-        ("- just\n- a list\n", "expected a mapping"),
-        ("name: x\nmethods: [pca]\n", "datasets: missing"),
-        ("", "expected a mapping"),
+        # the file is named once, then the position of the YAML error
+        ("name: x\ndatasets: [iris\n", "broken.yaml: line 3, column 1", "expected valid YAML"),
+        ("\x1f", "broken.yaml", "expected valid YAML"),
+        ("- just\n- a list\n", "broken.yaml", "expected a mapping"),
+        ("name: x\nmethods: [pca]\n", "broken.yaml: datasets", "missing"),
+        ("", "broken.yaml", "expected a mapping"),
+        # an empty or odd key is quoted, so the message still says which key
+        ("? ''\n: 1\nname: x\n", "broken.yaml: ''", "unknown key"),
+        ("name: x\n.hidden: 1\n", "broken.yaml: .hidden", "unknown key"),
     ],
 )
-def test_malformed_documents(text, words):
+def test_malformed_documents(text, where, words):
     with pytest.raises(InputError) as info:
         parse_suite(text, "broken.yaml")
-    assert str(info.value).startswith("broken.yaml")
+    assert info.value.where == where, str(info.value)
     assert words in str(info.value)
 
 
-def test_validate_command_exit_codes(tmp_path, capsys):
-    good = write(tmp_path, GOOD)
+def test_validate_command_exit_codes(write_suite, capsys):
+    good = write_suite(GOOD)
     assert main(["validate", str(good)]) == 0
     assert "valid" in capsys.readouterr().out
-    bad = write(tmp_path, GOOD.replace("k: [5, 10]", "k: [5, 500]"), "bad.yaml")
+    bad = write_suite(GOOD.replace("k: [5, 10]", "k: [5, 500]"), "bad.yaml")
     assert main(["validate", str(bad)]) == 2
     err = capsys.readouterr().err.strip()
     assert err.count("\n") == 0 and "bad.yaml: measures.k[1]" in err
 
 
-def test_validate_through_the_console_has_no_traceback(tmp_path):
-    bad = write(tmp_path, GOOD.replace("use: iris", "use: irsi"))
+def test_validate_through_the_console_has_no_traceback(write_suite):
+    bad = write_suite(GOOD.replace("use: iris", "use: irsi"))
     proc = subprocess.run(
         [sys.executable, "-m", "harness", "validate", str(bad)], capture_output=True, text=True
     )
@@ -154,12 +151,11 @@ def test_missing_suite_file(tmp_path, capsys):
     assert "nope.yaml: no such file" in capsys.readouterr().err
 
 
-def test_table_paths_resolve_next_to_the_suite(tmp_path):
+def test_table_paths_resolve_next_to_the_suite(tmp_path, write_suite):
     (tmp_path / "data").mkdir()
     rows = "\n".join(f"{i},{i * i % 7},{(3 * i) % 5},{'ab'[i % 2]}" for i in range(30))
     (tmp_path / "data" / "t.csv").write_text("a,b,c,kind\n" + rows + "\n")
-    path = write(
-        tmp_path,
+    path = write_suite(
         """\
         name: tab
         datasets:

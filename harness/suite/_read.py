@@ -8,7 +8,7 @@ from typing import Any
 
 from ..errors import InputError, suggest
 from ..metrics import MEASURES
-from ..text import show
+from ..text import key_text, show
 
 _SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 _SIZE_UNITS = {"": 1, "b": 1, "kb": 10**3, "mb": 10**6, "gb": 10**9, "kib": 2**10, "mib": 2**20, "gib": 2**30}
@@ -37,7 +37,7 @@ def no_unknown(given: Mapping[str, Any], known: tuple[str, ...], where: str) -> 
         if key not in known:
             prefix = f"{where}." if where else ""
             raise InputError(
-                f"{prefix}{key}".lstrip("."),
+                f"{prefix}{key_text(key)}",
                 f"unknown key{suggest(key, known)}; expected one of {', '.join(known)}",
             )
 

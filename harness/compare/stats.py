@@ -59,6 +59,10 @@ def bootstrap_interval(
 ) -> tuple[float, float]:
     """Percentile bootstrap interval of the mean.
 
+    With a handful of values it covers the mean far less often than its level
+    (a "95%" interval of 3 normal values covers about 74% of the time), which is
+    why seed intervals use :func:`t_interval`; this one is for many values.
+
     Parameters
     ----------
     values : array-like of float

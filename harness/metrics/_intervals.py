@@ -3,8 +3,9 @@
 A sampled local measure is the mean of ``m`` per-point terms drawn without
 replacement from the ``N`` points.  Every such term lies in a known range
 ``[low, high]`` (``[0, 1]`` for trustworthiness, continuity, k-NN recall and
-both MRREs; shifted ranges for LCMC and the R_NX area) and is itself a mean of
-``c`` neighbour sub-terms (``c = k``: one per neighbour slot).
+both MRREs; shifted ranges for LCMC and the R_NX area) and is built from
+neighbour sub-terms; ``c`` (:func:`term_range`) is the inverse of the largest
+share of the range one neighbour can move it by (``c = k`` for recall).
 
 The normal interval ``mean ± 1.96 sd / sqrt(m)`` fails near the ends of the
 range: terms there are skewed, the sample sd is often 0 and the interval
@@ -12,7 +13,7 @@ collapses to a point (``0 ± 0``).  Instead the term mean is rescaled to
 ``[0, 1]`` and given the Wilson score interval (Wilson 1927,
 J. Am. Stat. Assoc. 22:209-212) on an effective count, as survey statistics
 does for proportions from clustered samples (Kish 1965, design effect;
-Korn & Graubard 1998, Survey Methodology 24:193-201, effective sample size
+Korn & Graubard 1998, Survey Methodology 24, effective sample size
 ``n* = p(1-p) / var(p)``):
 
 * ``n_eff = m * p(1-p) / s^2``, the count of independent Bernoulli trials
@@ -21,14 +22,15 @@ Korn & Graubard 1998, Survey Methodology 24:193-201, effective sample size
 * never below ``m``: a term in ``[0, 1]`` with mean ``p`` has variance at most
   ``p(1-p)`` (Bhatia & Davis 2000), so each point is worth at least one trial;
 * near an end of the range, where the sampled terms are effectively fewer than
-  :data:`MIN_OFF_END` away from that end (:func:`off_end`), the sample sd rests
-  on a handful of points and misses rare large terms, so ``n_eff`` is at most ``c m``: each point is credited
-  with no more than its ``c`` neighbour sub-terms as independent trials (for
+  :data:`MIN_OFF_END` away from that end (:func:`off_end`), the sample sd
+  rests on a handful of points and misses rare large terms, so ``n_eff`` is at
+  most ``c m``: each point is credited with no more than its ``c`` neighbour
+  sub-terms as independent trials (for
   rare events ``var ~ (largest sub-term share) * p``, which is this count);
   in particular an all-equal sample (``s = 0``, where the normal interval
   collapses to ``0 ± 0``) gets the bound Wilson gives ``c m`` trials;
 * the finite-population correction divides the count by ``1 - m / N``
-  (sampling without replacement, Cochran 1977, eq. 2.19).
+  (the variance of a mean under sampling without replacement, Cochran 1977, ch. 2).
 """
 
 from __future__ import annotations

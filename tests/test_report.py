@@ -213,10 +213,11 @@ def test_no_spread_or_interval_prints_as_zero():
     # plumbing: a zero spread reads as a note, a zero-width interval is left out
     from harness.text import interval_text, mean_sd
 
-    assert mean_sd(0.912, 0.0) == "0.912 (same in every seed)"
+    assert mean_sd(0.912, 0.0) == "0.912 (seeds agree)"
     assert mean_sd(0.912, 0.0002) == "0.912 (sd < 0.001)"
     assert mean_sd(0.912, 0.004) == "0.912 ± 0.004"
     assert interval_text(0.912, 0.912) is None
+    assert interval_text(0.9958111, 0.9958114) is None  # would print with equal ends
     assert interval_text(0.91201, 0.91204) == "[0.91201, 0.91204]"
 
 

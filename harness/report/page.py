@@ -73,7 +73,7 @@ def _measure_cell(analysis: Analysis, row: pd.Series, col: str) -> str:
     if is_estimated(analysis, row, col):
         text += "†"
     bounds = interval_text(row.get(f"{col}_lo"), row.get(f"{col}_hi"))
-    ci = "" if bounds is None else f'<span class="ci">95% t, {int(row["seeds_ok"])} seeds: {bounds}</span>'
+    ci = "" if bounds is None else f'<span class="ci">95% t, {int(row["seeds_ok"])} seeds {bounds}</span>'
     return _e(text) + ci
 
 
@@ -146,7 +146,8 @@ def _across(analysis: Analysis, figures: Mapping[str, Path | None]) -> str:
             "critical difference diagram",
             "Methods placed at their mean Friedman rank; the teal bars join methods whose mean ranks "
             "differ by less than the critical difference (ochre ruler), so the data do not tell them "
-            "apart.",
+            "apart. The critical difference is the Nemenyi test's asymptotic value (Demšar 2006); "
+            "with fewer than 10 datasets treat it as a rough guide.",
         )
     )
     return "\n".join(x for x in out if x)

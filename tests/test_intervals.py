@@ -105,3 +105,34 @@ def test_query_point_intervals_cover_the_exact_value():
     for row in table:
         print(f"{row[0]} | {row[1]} | {row[2]:.5f} | {row[3]}")
     assert all(row[3] >= 90 for row in table), [row for row in table if row[3] < 90]
+
+
+def test_interval_bounds_become_scores_columns_that_are_not_measures():
+    # plumbing: a cell record's intervals become <measure>_ci_low / _ci_high columns
+    from harness.compare.aggregate import measure_columns
+    from harness.run.folder import scores_frame
+
+    record = {
+        "key": "k",
+        "cell": {"dataset": "d", "method": "m", "params": {}, "seed": 0, "use": "m"},
+        "status": "ok",
+        "error": "",
+        "values": {"knn_recall@3": 0.0},
+        "intervals": {"knn_recall@3": [0.0, 0.006]},
+        "estimated": ["knn_recall@3"],
+        "fit_seconds": 1.0,
+        "fit_peak_mb": 1.0,
+        "score_seconds": 1.0,
+    }
+    frame = scores_frame([record])
+    assert frame.loc[0, "knn_recall@3_ci_low"] == 0.0 and frame.loc[0, "knn_recall@3_ci_high"] == 0.006
+    assert "knn_recall@3_ci_high" not in measure_columns(frame)
+
+
+def test_cached_scores_without_interval_bounds_are_not_trusted():
+    # plumbing: scores cached before estimates carried bounds are read as missing (scored again)
+    from harness.run.cache import _intervals
+
+    assert _intervals(None) is None
+    assert _intervals({"knn_recall@3": 0.004}) is None  # an old half-width
+    assert _intervals({"knn_recall@3": [0.0, 0.006]}) == {"knn_recall@3": (0.0, 0.006)}

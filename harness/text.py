@@ -100,12 +100,46 @@ def number(value: Any, digits: int = 3) -> str:
 
 
 def mean_sd(mean: Any, sd: Any, digits: int = 3) -> str:
-    """``0.912 ± 0.004``; the ``±`` part is left out when the spread is unknown."""
+    """``0.912 ± 0.004``; the ``±`` part is left out when the spread is unknown.
+
+    A spread that would print as zero is never written ``± 0.000``: it reads
+    ``(sd < 0.001)``, or ``(seeds agree)`` when it is exactly 0.
+    """
     if mean is None or (isinstance(mean, float) and math.isnan(mean)):
         return MISSING
     if sd is None or (isinstance(sd, float) and math.isnan(sd)):
         return f"{mean:.{digits}f}"
+    if sd == 0:
+        return f"{mean:.{digits}f} (seeds agree)"
+    if round(float(sd), digits) == 0:
+        return f"{mean:.{digits}f} (sd < {10.0**-digits:.{digits}f})"
     return f"{mean:.{digits}f} ± {sd:.{digits}f}"
+
+
+def interval_text(low: Any, high: Any, digits: int = 3) -> str | None:
+    """``[0.905, 0.919]``; ``None`` when unknown or when its ends would print alike.
+
+    The ends get more digits (up to 5) until they differ; an interval narrower
+    than that, or of zero width (seeds in full agreement), is not printed: the
+    value's own text says so (:func:`mean_sd`).
+    """
+    if low is None or high is None or not (math.isfinite(float(low)) and math.isfinite(float(high))):
+        return None
+    d = digits
+    while d < 5 and f"{low:.{d}f}" == f"{high:.{d}f}":
+        d += 1
+    if f"{low:.{d}f}" == f"{high:.{d}f}":
+        return None
+    return f"[{low:.{d}f}, {high:.{d}f}]"
+
+
+def pvalue_text(p: float, floor: float = 1e-4) -> str:
+    """``p = 0.032``, ``p = 0.41``; below ``floor`` ``p < 1e-4`` (a p-value is never printed as 0)."""
+    if not math.isfinite(p):
+        return "p = ?"
+    if p < floor:
+        return f"p < {floor:.0e}".replace("e-0", "e-")
+    return f"p = {p:.2g}" if p >= 0.01 else f"p = {p:.1e}".replace("e-0", "e-")
 
 
 def seconds(value: float | None) -> str:

@@ -63,7 +63,7 @@ def test_exact_global_measures_match_formulas_and_scipy():
     # Spearman correlation of pairwise distances: scipy.stats.spearmanr.
     assert res.values["shepard_spearman"] == pytest.approx(stats.spearmanr(d, e).statistic, abs=1e-12)
     assert res.values["latent_spearman"] == pytest.approx(stats.spearmanr(pdist(lat), e).statistic, abs=1e-12)
-    assert res.estimated == frozenset() and res.halfwidths == {}
+    assert res.estimated == frozenset() and res.intervals == {}
 
 
 def test_optimal_scale_is_a_minimum():
@@ -100,7 +100,8 @@ def test_sampled_pair_intervals_cover_exact_value():
         res = score(x, y, ks=[5], latent=lat, seed=seed, pair_sample_above=10, n_pairs=2000)
         assert res.estimated >= set(names)
         for name in names:
-            covered[name] += abs(res.values[name] - exact[name]) <= res.halfwidths[name]
+            low, high = res.intervals[name]
+            covered[name] += low <= exact[name] <= high
     assert all(c >= 85 for c in covered.values()), covered
 
 

@@ -58,7 +58,12 @@ def test_page_opens_with_the_verdict_and_cautions(run_dir, analysis):
     assert body.index("Verdict") < body.index("Across datasets") < body.index("Pictures")
     assert "carry little meaning" in page  # tsne is a neighbour-family method
     assert "isomap (tuned)" in page  # run over a grid
-    assert "percentile-bootstrap" in page  # intervals are said to be estimates
+    assert "Student t-interval" in page  # the page says which interval it prints
+    assert "Monte Carlo permutation" in page or "exact permutation" in page  # and which p-value
+    # 2 datasets: the asymptotic p-values are held back and the critical difference flagged
+    assert "not shown" in page and "asymptotic value" in page
+    assert not re.search(r"± 0\.0+(?!\d)", page)  # a spread is never printed as ± 0
+    assert not re.search(r"\bp = 0(?![.\d])", page)  # nor a p-value as 0
 
 
 @pytest.mark.slow
@@ -181,3 +186,24 @@ def test_measure_table_bold_and_escape():
     assert "a\\_b" in tex and "\\textbf{0.100 $\\pm$ 0.020}" in tex
     assert tex.splitlines()[1] == "\\toprule"
     assert tex_escape("50% & #1_x") == "50\\% \\& \\#1\\_x"
+
+
+def test_no_spread_or_interval_prints_as_zero():
+    # plumbing: a zero spread reads as a note, a zero-width interval is left out
+    from harness.text import interval_text, mean_sd
+
+    assert mean_sd(0.912, 0.0) == "0.912 (seeds agree)"
+    assert mean_sd(0.912, 0.0002) == "0.912 (sd < 0.001)"
+    assert mean_sd(0.912, 0.004) == "0.912 ± 0.004"
+    assert interval_text(0.912, 0.912) is None
+    assert interval_text(0.9958111, 0.9958114) is None  # would print with equal ends
+    assert interval_text(0.91201, 0.91204) == "[0.91201, 0.91204]"
+
+
+def test_p_values_are_never_printed_as_zero():
+    from harness.text import pvalue_text
+
+    assert pvalue_text(0.0) == "p < 1e-4"
+    assert pvalue_text(5e-5) == "p < 1e-4"
+    assert pvalue_text(0.032) == "p = 0.032"
+    assert pvalue_text(1.2e-3) == "p = 1.2e-3"

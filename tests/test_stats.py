@@ -15,6 +15,7 @@ from harness.compare.stats import (
     critical_difference,
     embedding_stability,
     friedman_from_mean_ranks,
+    friedman_permutation_pvalue,
     friedman_test,
     indistinct_groups,
     knn_overlap,
@@ -22,6 +23,7 @@ from harness.compare.stats import (
     pareto_front,
     rank_blocks,
     seed_statistics,
+    t_interval,
 )
 from harness.errors import InputError
 
@@ -128,7 +130,9 @@ def test_seed_statistics_mean_sd_interval():
     # NumPy mean and ddof=1 standard deviation
     assert out.loc["m", "t@10"] == pytest.approx(np.mean([0.8, 0.9, 0.85]))
     assert out.loc["m", "t@10_sd"] == pytest.approx(np.std([0.8, 0.9, 0.85], ddof=1))
-    assert 0.8 <= out.loc["m", "t@10_lo"] <= out.loc["m", "t@10"] <= out.loc["m", "t@10_hi"] <= 0.9
+    # Student 1908 t interval, as scipy.stats.t.interval computes it
+    ref = sps.t.interval(0.95, 2, loc=np.mean([0.8, 0.9, 0.85]), scale=sps.sem([0.8, 0.9, 0.85]))
+    assert (out.loc["m", "t@10_lo"], out.loc["m", "t@10_hi"]) == pytest.approx(ref, rel=1e-12)
     assert out.loc["m", "seeds"] == 3
     assert math.isnan(out.loc["one", "t@10_lo"]) and math.isnan(out.loc["one", "t@10_sd"])
 
@@ -169,3 +173,96 @@ def test_pareto_front_brute_force():
     assert pareto_front(quality, cost).tolist() == [True, True, True, False, False]
     ranks = [2.0, 3.0, 1.0, 4.0, 2.0]  # lower is better
     assert pareto_front(ranks, cost, higher_is_better=False).tolist() == [True, True, True, False, False]
+
+
+@pytest.mark.parametrize("n", [2, 3, 5, 10, 40])
+def test_t_interval_matches_scipy(n):
+    x = np.random.default_rng(n).normal(0.9, 0.02, n)
+    # scipy.stats.t.interval with the standard error of the mean (Student 1908)
+    ref = sps.t.interval(0.95, n - 1, loc=x.mean(), scale=sps.sem(x))
+    assert t_interval(x) == pytest.approx(ref, rel=1e-12)
+    assert all(math.isnan(v) for v in t_interval(x[:1]))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seeds", [3, 5, 10])
+def test_t_interval_covers_the_mean_of_normal_seed_scores(seeds):
+    # A 95% t interval of normal data covers the true mean with probability 0.95 exactly
+    # (Student 1908).  4000 trials: binomial sd sqrt(.95 * .05 / 4000) = 0.0034, so
+    # [0.935, 0.965] is about +-4.4 sd (a correct interval fails this about once in 10^5).
+    rng = np.random.default_rng(seeds)
+    x = rng.normal(0.8, 0.01, (4000, seeds))
+    covered = [low <= 0.8 <= high for low, high in map(t_interval, x)]
+    assert 0.935 <= np.mean(covered) <= 0.965
+
+
+def _scipy_permutation_p(ranks: np.ndarray) -> float:
+    # scipy.stats.permutation_test with permutation_type="samples" shuffles the treatments
+    # within each block (paired samples): the same null as ours, enumerated exactly.
+    def statistic(*columns, axis=-1):
+        return np.sum(np.sum(np.stack(columns), axis=axis) ** 2, axis=0)
+
+    res = sps.permutation_test(
+        tuple(ranks.T), statistic, permutation_type="samples", n_resamples=np.inf, alternative="greater"
+    )
+    return float(res.pvalue)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_exact_friedman_permutation_p_matches_scipy(seed):
+    rng = np.random.default_rng(seed)
+    ranks = rank_blocks(rng.integers(0, 3, size=(4, 3)).astype(float))  # ties included
+    res = friedman_permutation_pvalue(ranks)
+    assert res.exact
+    assert res.pvalue == pytest.approx(_scipy_permutation_p(ranks), rel=1e-9)
+
+
+def test_exact_friedman_distribution_of_the_published_table():
+    # Exact null distribution of Friedman's statistic for k = 3, N = 3 (Friedman 1937; as tabled
+    # in Siegel 1956, Table N; values from memory): P(chi2 >= 6.0) = 0.028, P(chi2 >= 4.667) = 0.194.
+    same = np.array([[1, 2, 3], [1, 2, 3], [1, 2, 3]], float)
+    near = np.array([[1, 2, 3], [1, 2, 3], [2, 1, 3]], float)
+    assert friedman_test(same).statistic == pytest.approx(6.0)
+    assert friedman_permutation_pvalue(same).pvalue == pytest.approx(0.028, abs=5e-4)
+    assert friedman_test(near).statistic == pytest.approx(4.667, abs=1e-3)
+    assert friedman_permutation_pvalue(near).pvalue == pytest.approx(0.194, abs=5e-4)
+
+
+def test_monte_carlo_friedman_p_is_seeded_never_zero_and_near_the_exact_one():
+    ranks = np.array([[1, 2, 3, 4, 5]] * 3, float)
+    mc = friedman_permutation_pvalue(ranks, exact_limit=0, draws=999, seed=3)
+    # Phipson & Smyth 2010: (1 + hits) / (draws + 1); no draw beats perfect agreement here
+    assert not mc.exact and mc.pvalue >= 1 / 1000
+    assert mc == friedman_permutation_pvalue(ranks, exact_limit=0, draws=999, seed=3)
+    rng = np.random.default_rng(9)
+    ranks = rank_blocks(rng.random((3, 5)))
+    exact = friedman_permutation_pvalue(ranks)
+    mc = friedman_permutation_pvalue(ranks, exact_limit=0, draws=19_999, seed=1)
+    # binomial sd of a Monte Carlo p from 20000 draws is at most 0.0036
+    assert exact.exact and mc.pvalue == pytest.approx(exact.pvalue, abs=0.015)
+
+
+def test_friedman_result_carries_the_permutation_p_and_hides_asymptotics_at_small_n():
+    res = friedman_test(np.array([[1, 2, 3], [1, 2, 3]], float))
+    # Iman-Davenport's F is infinite here; its p of 0 is not what decisions use
+    assert math.isinf(res.iman_davenport)
+    assert res.permutation.pvalue == pytest.approx(1 / 6)  # 1 of the 3! orders of the second block
+    assert not res.asymptotic_ok
+
+
+@pytest.mark.slow
+def test_permutation_friedman_holds_its_level_with_few_datasets():
+    # Under the null (independent random rank orders per dataset) a level-0.05 test rejects at most
+    # 5% of the time.  4000 trials per (N, k): binomial sd 0.0034 at 5%, so the bound 6% is about
+    # 2.9 sd above the level (the exact test's size is at most 5%, usually less by discreteness).
+    rng = np.random.default_rng(2024)
+    rates = {}
+    for n_blocks in range(2, 7):
+        for k in range(3, 9):
+            ranks = np.argsort(rng.random((4000, n_blocks, k)), axis=2) + 1.0
+            rejected = [friedman_permutation_pvalue(r).pvalue < 0.05 for r in ranks]
+            rates[n_blocks, k] = float(np.mean(rejected))
+    print("\nN k rejection-rate")
+    for (n_blocks, k), rate in rates.items():
+        print(n_blocks, k, f"{rate:.4f}")
+    assert max(rates.values()) <= 0.06, rates

@@ -13,8 +13,8 @@ import pandas as pd
 
 from ..config import CellStatus, is_failure
 from ..metrics import MEASURES, measure_stem
-from ..run.folder import ID_COLUMNS, INFO_COLUMNS
-from .stats import bootstrap_interval
+from ..run.folder import CI_HIGH, CI_LOW, ID_COLUMNS, INFO_COLUMNS
+from .stats import t_interval
 
 #: A configuration: one dataset x method x parameter point (its seeds are pooled).
 CONFIG = ["dataset", "method", "params"]
@@ -23,14 +23,16 @@ COST_COLUMNS = ("fit_seconds", "fit_peak_mb")
 
 
 def measure_columns(scores: pd.DataFrame) -> list[str]:
-    """Measure columns of a scores table (values, not interval half-widths), cost columns included."""
+    """Measure columns of a scores table (values, not interval bounds), cost columns included."""
     skip = set(ID_COLUMNS) | set(INFO_COLUMNS) - set(COST_COLUMNS)
     return [
-        c for c in scores.columns if c not in skip and not c.endswith("_ci95") and measure_stem(c) in MEASURES
+        c
+        for c in scores.columns
+        if c not in skip and not c.endswith((CI_LOW, CI_HIGH)) and measure_stem(c) in MEASURES
     ]
 
 
-def aggregate(scores: pd.DataFrame, *, level: float = 0.95, seed: int = 0) -> pd.DataFrame:
+def aggregate(scores: pd.DataFrame, *, level: float = 0.95) -> pd.DataFrame:
     """Mean, spread and interval of every measure over the seeds of each configuration.
 
     Parameters
@@ -39,8 +41,6 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95, seed: int = 0) -> pd
         A row per cell (``RunFolder.scores``).
     level : float
         Coverage of the interval of the mean.
-    seed : int
-        Seed of the interval's resampling, so the same scores always give the same interval.
 
     Returns
     -------
@@ -49,7 +49,11 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95, seed: int = 0) -> pd
         ``seeds_ok`` and ``seeds_failed`` (cells meant to run that did not
         finish ok), then per measure ``m``: ``m`` (mean over the ok seeds),
         ``m_sd`` (sample standard deviation, ddof = 1), ``m_lo`` and ``m_hi``
-        (the interval of the mean; NaN with fewer than two seeds).
+        (the Student t interval of the mean over the seeds, Student 1908; NaN
+        with fewer than two seeds).  A percentile bootstrap of 3 to 10 seed
+        values covers the true mean far less often than it claims (about 74%
+        at 3 seeds for a "95%" interval); the t interval holds its level for
+        normal seed scores at any number of seeds.
     """
     cols = measure_columns(scores)
     rows = []
@@ -63,7 +67,7 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95, seed: int = 0) -> pd
             finite = values[np.isfinite(values)]
             row[m] = float(finite.mean()) if finite.size else math.nan
             row[f"{m}_sd"] = float(finite.std(ddof=1)) if finite.size > 1 else math.nan
-            row[f"{m}_lo"], row[f"{m}_hi"] = bootstrap_interval(finite, level=level, seed=seed)
+            row[f"{m}_lo"], row[f"{m}_hi"] = t_interval(finite, level=level)
         rows.append(row)
     columns = [*CONFIG, "seeds_ok", "seeds_failed"] + [
         f"{m}{s}" for m in cols for s in ("", "_sd", "_lo", "_hi")

@@ -29,7 +29,7 @@ from ..metrics import higher_is_better
 from ..run.atomic import write_text
 from ..run.folder import RunFolder
 from ..suite.tolerances import alpha_of, parse_tolerances, resolve_tolerance
-from ..text import seed_range
+from ..text import pvalue_text, seed_range
 from .aggregate import CONFIG, measure_columns
 from .environment import environment_changes
 
@@ -352,7 +352,7 @@ def _shown(outcome: CheckOutcome, show_unchanged: bool) -> pd.DataFrame:
 
 def _row_cells(row: pd.Series) -> list[str]:
     verdict = row["verdict"] if row["gated"] or row["verdict"] != "regression" else "regression (not gated)"
-    p = "-" if pd.isna(row["p_value"]) else f"{row['p_value']:.3g}"
+    p = "-" if pd.isna(row["p_value"]) else pvalue_text(float(row["p_value"])).removeprefix("p = ")
     return [
         row["dataset"],
         row["method"],

@@ -83,8 +83,9 @@ def run_notes(suite: Suite, scores: pd.DataFrame) -> list[str]:
         notes.append(NEIGHBOUR_CAUTION.format(names=", ".join(suite.neighbour_methods)))
     if "estimated" in scores and scores["estimated"].fillna("").str.len().gt(0).any():
         notes.append(
-            "Some values are estimates from sampled pairs or query points; their 95% "
-            "interval half-widths are in the *_ci95 columns of scores.csv."
+            "Some values are estimates from sampled pairs or query points; the bounds of their 95% "
+            "intervals (Wilson score intervals for query points, jackknife for pairs) are in the "
+            "*_ci_low and *_ci_high columns of scores.csv."
         )
     skipped = scores[scores["status"] == CellStatus.SKIPPED]
     for (_, method), group in skipped.groupby(["dataset", "method"], sort=False):

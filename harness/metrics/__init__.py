@@ -22,8 +22,9 @@ from ..errors import InputError
 from ._catalogue import MEASURES, MeasureInfo, higher_is_better, measure_stem
 from ._distances import DistanceRows
 from ._global import JACKKNIFE_GROUPS, global_measures
+from ._intervals import local_estimates
 from ._labels import knn_accuracy, silhouette
-from ._local import PER_K, collect, curve_table, mean_interval
+from ._local import PER_K, collect, curve_table
 from ._memory import block_rows, default_memory_bytes
 from ._ranks import rank_blocks
 
@@ -51,8 +52,11 @@ class MeasureResult:
     ----------
     values : dict of str to float
         Measure name (``@k`` appended for k-dependent ones) to value.
-    halfwidths : dict of str to float
-        95% confidence half-width of every value that is an estimate.
+    intervals : dict of str to (float, float)
+        95% confidence interval ``(lower, upper)`` of every value that is an
+        estimate: Wilson score intervals for measures from sampled query points
+        (see ``harness.metrics._intervals``), jackknife intervals for measures
+        from sampled pairs.
     estimated : frozenset of str
         Keys of ``values`` that are estimates rather than exact.
     curve : pandas.DataFrame or None
@@ -60,7 +64,7 @@ class MeasureResult:
     """
 
     values: dict[str, float]
-    halfwidths: dict[str, float] = field(default_factory=dict)
+    intervals: dict[str, tuple[float, float]] = field(default_factory=dict)
     estimated: frozenset[str] = frozenset()
     curve: pd.DataFrame | None = None
 
@@ -235,17 +239,7 @@ def score(
         queries = np.arange(n)
     local = _local(x_points, x_matrix, y, ks, k_curve, queries, memory_bytes)
 
-    values: dict[str, float] = {}
-    halfwidths: dict[str, float] = {}
-    for name in PER_K:
-        for k in ks:
-            key = f"{name}@{k}"
-            values[key], hw = mean_interval(local.terms[key], n if sampled else None)
-            if sampled:
-                halfwidths[key] = hw
-    values["rnx_auc"], hw = mean_interval(local.terms["rnx_auc"], n if sampled else None)
-    if sampled:
-        halfwidths["rnx_auc"] = hw
+    values, intervals = local_estimates(local.terms, n, k_curve, sampled)
 
     g_values, g_halfwidths = global_measures(
         x_points,
@@ -258,7 +252,7 @@ def score(
         memory_bytes=memory_bytes,
     )
     values.update(g_values)
-    halfwidths.update(g_halfwidths)
+    intervals.update({name: (g_values[name] - hw, g_values[name] + hw) for name, hw in g_halfwidths.items()})
 
     if labels is not None:
         for k in ks:
@@ -268,7 +262,7 @@ def score(
 
     big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
     curve = pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})
-    return MeasureResult(values, halfwidths, frozenset(halfwidths), curve)
+    return MeasureResult(values, intervals, frozenset(intervals), curve)
 
 
 def evaluate(

@@ -140,28 +140,3 @@ def curve_table(overlap_sum: np.ndarray, n_queries: int, n: int) -> tuple[np.nda
     q = overlap_sum / (n_queries * big_k)
     r = ((n - 1.0) * q - big_k) / (n - 1.0 - big_k)
     return big_k, q, r
-
-
-def mean_interval(values: np.ndarray, population: int | None) -> tuple[float, float]:
-    """Mean and 95% half-width of a mean of per-point terms.
-
-    Parameters
-    ----------
-    values : ndarray
-        Per-point terms of the sampled points.
-    population : int or None
-        Number of points sampled from (without replacement); the finite
-        population correction ``sqrt(1 - m / N)`` is applied.  ``None`` means
-        the values are the whole population: the half-width is 0.
-
-    Returns
-    -------
-    mean, halfwidth : float
-    """
-    mean = float(np.mean(values))
-    if population is None:
-        return mean, 0.0
-    m = len(values)
-    sd = float(np.std(values, ddof=1)) if m > 1 else float("inf")
-    fpc = np.sqrt(max(0.0, 1.0 - m / population))
-    return mean, 1.96 * sd / np.sqrt(m) * fpc

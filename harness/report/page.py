@@ -19,10 +19,11 @@ import pandas as pd
 
 from ..compare.tables import arrow
 from ..metrics import higher_is_better
-from ..text import number
+from ..text import interval_text, mean_sd, number
 from . import palette
 from .analysis import Analysis, is_estimated
 from .tables import best_mask
+from .verdict import friedman_paragraph
 
 _TEMPLATES = files("harness.report") / "templates"
 
@@ -68,11 +69,11 @@ def _measure_cell(analysis: Analysis, row: pd.Series, col: str) -> str:
     mean, sd = row.get(col), row.get(f"{col}_sd")
     if mean is None or pd.isna(mean):
         return "–"
-    text = f"{mean:.3f}" if pd.isna(sd) else f"{mean:.3f} ± {sd:.3f}"
+    text = mean_sd(float(mean), None if sd is None or pd.isna(sd) else float(sd))
     if is_estimated(analysis, row, col):
         text += "†"
-    lo, hi = row.get(f"{col}_lo"), row.get(f"{col}_hi")
-    ci = "" if lo is None or pd.isna(lo) else f'<span class="ci">95% [{lo:.3f}, {hi:.3f}]</span>'
+    bounds = interval_text(row.get(f"{col}_lo"), row.get(f"{col}_hi"))
+    ci = "" if bounds is None else f'<span class="ci">95% t, {int(row["seeds_ok"])} seeds {bounds}</span>'
     return _e(text) + ci
 
 
@@ -138,20 +139,15 @@ def _across(analysis: Analysis, figures: Mapping[str, Path | None]) -> str:
         )
     f = analysis.friedman
     if f is not None and analysis.cd is not None:
-        groups = "; ".join("{" + ", ".join(g) + "}" for g in analysis.groups) or "none"
-        out.append(
-            f"<p>Friedman χ² = {f.statistic:.2f} (p = {f.pvalue:.3g}); Iman–Davenport F = "
-            f"{f.iman_davenport:.2f} (p = {f.iman_davenport_pvalue:.3g}); {f.n_blocks} datasets, "
-            f"{f.n_treatments} methods. Nemenyi critical difference at α = {analysis.alpha:g}: "
-            f"{analysis.cd:.2f}. Groups not told apart: {_e(groups)}.</p>"
-        )
+        out.append(f"<p>{_e(friedman_paragraph(analysis))}</p>")
     out.append(
         _figure(
             figures.get("cd"),
             "critical difference diagram",
             "Methods placed at their mean Friedman rank; the teal bars join methods whose mean ranks "
             "differ by less than the critical difference (ochre ruler), so the data do not tell them "
-            "apart.",
+            "apart. The critical difference is the Nemenyi test's asymptotic value (Demšar 2006); "
+            "with fewer than 10 datasets treat it as a rough guide.",
         )
     )
     return "\n".join(x for x in out if x)
@@ -183,9 +179,12 @@ def _pareto(analysis: Analysis, figures: Mapping[str, Path | None]) -> str:
 
 def _datasets(analysis: Analysis) -> str:
     out = [
-        "<p class='small'>Mean ± sample sd over seeds, with the 95% percentile-bootstrap interval of "
-        "the mean beneath (an estimate; with few seeds, a rough one). Best per column in bold teal. "
-        "† = estimated from sampled pairs or points.</p>"
+        "<p class='small'>Mean ± sample sd over seeds, with the 95% Student t-interval of the mean "
+        "over the seeds beneath (t with seeds − 1 degrees of freedom, Student 1908; it assumes the seed "
+        "scores are roughly normal, and with 3 seeds it is wide because 3 seeds say little). Best per "
+        "column in bold teal. † = estimated from sampled pairs or query points: each seed's value has "
+        "its own 95% interval (Wilson score interval for query points, jackknife for pairs) in the "
+        "*_ci_low and *_ci_high columns of scores.csv.</p>"
     ]
     shown = [*list(analysis.rank_by), "fit_seconds"]
     for d in analysis.run.suite.datasets:

@@ -9,6 +9,7 @@ import pandas as pd
 from ..text import markdown_table
 from .analysis import Analysis, is_estimated
 from .tables import booktabs_table, measure_table, tex_escape
+from .verdict import friedman_paragraph
 
 #: Measure columns per table before the rest spill into another table (keeps pages narrow).
 COLUMNS_PER_TABLE = 5
@@ -64,8 +65,10 @@ def tables_markdown(analysis: Analysis) -> str:
     parts = [
         f"# {name}: tables",
         "",
-        "Values are mean ± sample sd over seeds; the best value of each column is in bold; "
-        "↑ higher is better, ↓ lower is better; † marks estimates from sampled pairs or points. "
+        "Values are mean ± sample sd over seeds (95% Student t-intervals of the means over the seeds are "
+        "in report.html and summary.csv); the best value of each column is in bold; "
+        "↑ higher is better, ↓ lower is better; † marks estimates from sampled pairs or query points "
+        "(each seed's 95% interval is in scores.csv). "
         "Methods run over a grid are shown at their best grid point per dataset (tuned).",
         "",
     ]
@@ -78,10 +81,7 @@ def tables_markdown(analysis: Analysis) -> str:
             "",
         ]
         if analysis.cd is not None:
-            parts += [
-                f"Nemenyi critical difference at α = {analysis.alpha:g}: {analysis.cd:.2f} (Friedman ranks).",
-                "",
-            ]
+            parts += [friedman_paragraph(analysis), ""]
     for d in analysis.run.suite.datasets:
         tables = dataset_tables(analysis, d.name, "markdown")
         if tables:

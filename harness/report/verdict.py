@@ -6,8 +6,9 @@ import math
 
 import pandas as pd
 
+from ..compare.stats import ASYMPTOTIC_MIN_DATASETS
 from ..metrics import MEASURES, measure_stem
-from ..text import seconds
+from ..text import mean_sd, pvalue_text, seconds
 from .analysis import Analysis
 
 _STRENGTH = {
@@ -21,13 +22,11 @@ _WORTH_SAYING = 2.0
 
 
 def value_sd(row: pd.Series, column: str, digits: int = 2) -> str:
-    """``0.99 ± 0.01`` (no ``±`` with one seed)."""
+    """``0.99 ± 0.01`` (no ``±`` with one seed, never ``± 0.00``: see :func:`harness.text.mean_sd`)."""
     mean, sd = row.get(column), row.get(f"{column}_sd")
     if mean is None or not math.isfinite(float(mean)):
         return "–"
-    if sd is None or not math.isfinite(float(sd)):
-        return f"{mean:.{digits}f}"
-    return f"{mean:.{digits}f} ± {sd:.{digits}f}"
+    return mean_sd(float(mean), None if sd is None else float(sd), digits)
 
 
 def dataset_sentence(analysis: Analysis, dataset: str) -> str | None:
@@ -94,20 +93,53 @@ def overall_sentence(analysis: Analysis) -> str | None:
         for i in range(len(names))
         if i != best_i and f.mean_ranks[i] - f.mean_ranks[best_i] < analysis.cd
     ]
-    verdict = "finds" if f.pvalue < analysis.alpha else "does not find"
+    # The decision rests on the permutation p-value: it holds its level at any number of datasets.
+    p = f.permutation.pvalue
+    verdict = "finds" if p < analysis.alpha else "does not find"
     text += (
         f" The Friedman test {verdict} a difference among the {f.n_treatments} methods "
-        f"(χ² = {f.statistic:.2f}, p = {f.pvalue:.3g}, {f.n_blocks} datasets)"
+        f"(χ² = {f.statistic:.2f}, {pvalue_text(p)} by {f.permutation.method}, {f.n_blocks} datasets)"
     )
+    if p >= analysis.alpha:
+        # Without a difference overall, pairwise claims from the critical difference are not made.
+        return text + "; so no method is shown to beat another."
+    cd = f"critical difference ({analysis.cd:.2f}{'' if f.asymptotic_ok else ', asymptotic'})"
     if near:
         text += (
             f"; {', '.join(analysis.label(m) for m in near)} "
-            f"{'is' if len(near) == 1 else 'are'} within the critical difference "
-            f"({analysis.cd:.2f}) of {analysis.label(names[best_i])} and cannot be told apart from it."
+            f"{'is' if len(near) == 1 else 'are'} within the {cd} "
+            f"of {analysis.label(names[best_i])} and cannot be told apart from it."
         )
     else:
-        text += f"; every other method is more than the critical difference ({analysis.cd:.2f}) behind."
+        text += f"; every other method is more than the {cd} behind."
     return text
+
+
+def friedman_paragraph(analysis: Analysis) -> str:
+    """The rank tests across datasets in words: which p-value, which approximation, which caveat."""
+    f = analysis.friedman
+    if f is None or analysis.cd is None:
+        return ""
+    groups = "; ".join("{" + ", ".join(g) + "}" for g in analysis.groups) or "none"
+    text = (
+        f"Friedman test (Friedman 1937) over {f.n_blocks} datasets and {f.n_treatments} methods: "
+        f"χ² = {f.statistic:.2f}, {pvalue_text(f.permutation.pvalue)} ({f.permutation.method} over the "
+        "rank orders within each dataset, which holds its level at any number of datasets)."
+    )
+    if f.asymptotic_ok:
+        text += (
+            f" Asymptotic p-values: chi-square {pvalue_text(f.pvalue)}; Iman–Davenport "
+            f"F = {f.iman_davenport:.2f}, {pvalue_text(f.iman_davenport_pvalue)} (Iman & Davenport 1980)."
+        )
+    else:
+        text += (
+            f" The chi-square and Iman–Davenport approximations are not shown: with fewer than "
+            f"{ASYMPTOTIC_MIN_DATASETS} datasets they reject a true null too often (Demšar 2006)."
+        )
+    text += f" Nemenyi critical difference at α = {analysis.alpha:g}: {analysis.cd:.2f}"
+    if not f.asymptotic_ok:
+        text += f" (an asymptotic value; with {f.n_blocks} datasets treat it as a rough guide)"
+    return text + f". Groups not told apart: {groups}."
 
 
 def verdict(analysis: Analysis) -> list[str]:

@@ -90,6 +90,18 @@ def _floats(values: dict[str, Any]) -> dict[str, float]:
     return {k: _float(v) for k, v in values.items()}
 
 
+def _intervals(values: Any) -> dict[str, tuple[float, float]] | None:
+    """``{measure: (low, high)}`` read back, or ``None`` when missing or not of that shape."""
+    if not isinstance(values, dict):
+        return None
+    out = {}
+    for k, v in values.items():
+        if not isinstance(v, list) or len(v) != 2:
+            return None
+        out[str(k)] = (_float(v[0]), _float(v[1]))
+    return out
+
+
 @dataclass(frozen=True)
 class EmbeddingCache:
     """The cache folder: ``<root>/<2 hex>/<key>.npy`` plus ``<key>.json``.
@@ -155,7 +167,7 @@ class EmbeddingCache:
         curve = None if result.curve is None else result.curve.to_dict(orient="list")
         info.setdefault("scores", {})[scoring_digest(scoring)] = {
             "values": result.values,
-            "halfwidths": result.halfwidths,
+            "intervals": {k: list(v) for k, v in result.intervals.items()},
             "estimated": list(result.estimated),
             "curve": curve,
             "score_seconds": result.score_seconds,
@@ -179,13 +191,17 @@ class EmbeddingCache:
             return None
         if embedding.shape[1:] != (cell.dimensions,):
             return None
+        intervals = _intervals(scored.get("intervals"))
+        if intervals is None or set(scored.get("estimated") or ()) - set(intervals):
+            # Written before estimates carried their intervals (or damaged): score again.
+            return None
         curve = None if scored.get("curve") is None else pd.DataFrame(scored["curve"])
         return CellResult(
             cell,
             CellStatus.OK,
             embedding=embedding,
             values=_floats(scored["values"]),
-            halfwidths=_floats(scored.get("halfwidths") or {}),
+            intervals=intervals,
             estimated=tuple(scored.get("estimated") or ()),
             curve=curve,
             fit_seconds=_float(info.get("fit_seconds")),

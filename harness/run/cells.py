@@ -76,7 +76,7 @@ class CellResult:
     detail: str = ""
     embedding: np.ndarray | None = None
     values: dict[str, float] = field(default_factory=dict)
-    halfwidths: dict[str, float] = field(default_factory=dict)
+    intervals: dict[str, tuple[float, float]] = field(default_factory=dict)
     estimated: tuple[str, ...] = ()
     curve: pd.DataFrame | None = None
     fit_seconds: float = float("nan")

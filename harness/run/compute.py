@@ -144,7 +144,7 @@ def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) ->
         CellStatus.OK,
         embedding=Y,
         values=dict(measured.values),
-        halfwidths=dict(measured.halfwidths),
+        intervals=dict(measured.intervals),
         estimated=tuple(sorted(measured.estimated)),
         curve=measured.curve,
         score_seconds=time.perf_counter() - t0,

@@ -35,6 +35,8 @@ from . import atomic
 from .cells import CellResult
 
 ID_COLUMNS = ["dataset", "method", "params", "seed"]
+#: Suffixes of the columns holding the bounds of an estimated value's 95% interval.
+CI_LOW, CI_HIGH = "_ci_low", "_ci_high"
 INFO_COLUMNS = [
     "status",
     "error",
@@ -60,7 +62,7 @@ def cell_record(result: CellResult) -> dict[str, Any]:
         "error": result.error,
         "detail": result.detail,
         "values": result.values,
-        "halfwidths": result.halfwidths,
+        "intervals": {k: list(v) for k, v in result.intervals.items()},
         "estimated": list(result.estimated),
         "fit_seconds": result.fit_seconds,
         "fit_peak_mb": result.fit_peak_mb,
@@ -74,7 +76,9 @@ def cell_record(result: CellResult) -> dict[str, Any]:
 def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> pd.DataFrame:
     """A row per cell: id columns, status and cost, then one column per measure.
 
-    Half-widths of 95% intervals of estimated values are columns ``<measure>_ci95``.
+    The 95% interval of an estimated value is in columns ``<measure>_ci_low`` and
+    ``<measure>_ci_high`` (Wilson score intervals for measures from sampled query
+    points, jackknife intervals for measures from sampled pairs).
     With ``suite``, rows follow its order (dataset, method, grid point, seed),
     which is the order of the plan; cells it does not name come last.
     """
@@ -97,7 +101,8 @@ def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> p
             "from_cache": r.get("from_cache", False),
         }
         row.update(r.get("values") or {})
-        row.update({f"{name}_ci95": value for name, value in (r.get("halfwidths") or {}).items()})
+        for name, (low, high) in (r.get("intervals") or {}).items():
+            row[f"{name}{CI_LOW}"], row[f"{name}{CI_HIGH}"] = low, high
         rows.append(row)
     frame = pd.DataFrame(rows, columns=None if rows else ID_COLUMNS + INFO_COLUMNS)
     if suite is not None and len(frame):

@@ -3,7 +3,7 @@
 Importing this package registers the built-in methods.
 """
 
-from . import builtin, modern  # register the built-in methods and the optional adapters
+from . import builtin, files, modern  # register the built-in methods, file embeddings and adapters
 from ._fit import DegenerateEmbedding, fit_embedding
 from ._registry import METHODS, MethodSpec, register_method
 from ._threads import cell_threads, thread_budget
@@ -17,6 +17,7 @@ __all__ = [
     "builtin",
     "cell_threads",
     "check_method",
+    "files",
     "fit_embedding",
     "get_method_spec",
     "modern",

@@ -43,6 +43,13 @@ class MethodSpec:
     requires : tuple of str, optional
         ``(module, distribution)`` of an optional package the method needs
         (imported only when it is fitted); empty for methods of the base install.
+    content_identity : callable, optional
+        ``content_identity(params) -> str`` for methods whose output depends on
+        something outside their parameters (a file's bytes); the cache key
+        includes it.
+    check_dataset : callable, optional
+        ``check_dataset(params, dataset, dimensions) -> str``: a reason the
+        method cannot run on that dataset ("" when it can), found when planning.
     """
 
     name: str
@@ -56,6 +63,8 @@ class MethodSpec:
     source: str = ""
     places_new_points: bool = False
     requires: tuple[str, ...] = ()
+    content_identity: Callable[[dict[str, Any]], str] | None = None
+    check_dataset: Callable[..., str] | None = None
 
     def missing_package(self) -> str | None:
         """The distribution to install when the method's package is absent, else ``None``."""
@@ -96,6 +105,8 @@ def register_method(
     source: str = "",
     places_new_points: bool = False,
     requires: tuple[str, ...] = (),
+    content_identity: Callable[[dict[str, Any]], str] | None = None,
+    check_dataset: Callable[..., str] | None = None,
 ) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
     """Decorator that adds an estimator builder to :data:`METHODS`."""
 
@@ -112,6 +123,8 @@ def register_method(
             source,
             places_new_points,
             requires,
+            content_identity,
+            check_dataset,
         )
         return fn
 

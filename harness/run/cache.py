@@ -74,6 +74,9 @@ def cache_key(cell: Cell) -> str:
         "seed": cell.seed,
         "libraries": _library_versions(),
     }
+    spec = METHODS.get(cell.use)
+    if spec is not None and spec.content_identity is not None:
+        doc["content"] = spec.content_identity(cell.params_dict())
     package = _method_package(cell.use)
     if package is not None:
         # Only methods from optional packages carry this, so base-install keys stay as they were.

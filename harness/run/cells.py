@@ -117,6 +117,8 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
         for m in suite.methods:
             spec = get_method_spec(m.use, roots=suite.plugin_roots)
             reason = _refusal(spec, ds, suite.run.quadratic_limit)
+            if not reason and spec.check_dataset is not None:
+                reason = spec.check_dataset(dict(m.params), ds, suite.dimensions)
             for point in m.grid_points():
                 for seed in suite.seeds:
                     cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)

@@ -79,6 +79,7 @@ class CellResult:
     halfwidths: dict[str, float] = field(default_factory=dict)
     estimated: tuple[str, ...] = ()
     curve: pd.DataFrame | None = None
+    points: pd.DataFrame | None = None
     fit_seconds: float = float("nan")
     fit_peak_mb: float = float("nan")
     score_seconds: float = float("nan")

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Sequence
+from pathlib import PurePath
 from typing import Any
 
 #: Longest exception text kept in a one-line message (a cell's ``error``, an input error).
@@ -81,8 +82,12 @@ def format_value(value: Any) -> str:
 
 
 def params_text(params: Iterable[tuple[str, Any]]) -> str:
-    """``perplexity=30,init=pca``; ``-`` when there are no parameters."""
-    return ",".join(f"{k}={format_value(v)}" for k, v in params) or "-"
+    """``perplexity=30,init=pca``; ``-`` when there are no parameters.
+
+    A ``path`` shows its file name only, so that tables stay short and a gate
+    compares an embedding file with its namesake from another folder.
+    """
+    return ",".join(f"{k}={PurePath(v).name if k == 'path' else format_value(v)}" for k, v in params) or "-"
 
 
 def method_label(method: str, tuned: bool) -> str:

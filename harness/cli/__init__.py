@@ -16,11 +16,17 @@ import sys
 
 from ..config import foldbench_version
 from ..errors import InputError
-from . import cache, results, run, suites
+from . import cache, results, run, score, suites
 from ._base import EXIT_FAILED, EXIT_INPUT, EXIT_INTERRUPTED, EXIT_OK, Command, Parser
 
 #: Every command, in the order ``foldbench --help`` lists them.
-COMMANDS: list[Command] = [*run.COMMANDS, *suites.COMMANDS, *results.COMMANDS, *cache.COMMANDS]
+COMMANDS: list[Command] = [
+    *run.COMMANDS,
+    *score.COMMANDS,
+    *suites.COMMANDS,
+    *results.COMMANDS,
+    *cache.COMMANDS,
+]
 
 
 def build_parser() -> argparse.ArgumentParser:

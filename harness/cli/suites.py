@@ -3,8 +3,12 @@
 from __future__ import annotations
 
 import argparse
+from typing import TYPE_CHECKING
 
 from ._base import EXIT_OK, Command
+
+if TYPE_CHECKING:
+    from ..methods import MethodSpec
 
 
 def _validate_arguments(p: argparse.ArgumentParser) -> None:
@@ -46,6 +50,18 @@ def _list_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("what", choices=["datasets", "methods", "measures"])
 
 
+def _method_tags(spec: MethodSpec) -> str:
+    tags: list[str] = [spec.family]
+    if spec.accepts_distances:
+        tags.append("takes distances")
+    if spec.places_new_points:
+        tags.append("places new points")
+    missing = spec.missing_package()
+    if missing is not None:
+        tags.append(f"not installed: pip install 'foldbench[methods]' ({missing})")
+    return f"  [{'; '.join(tags)}]"
+
+
 def _list(args: argparse.Namespace) -> int:
     from ..datasets import DATASETS
     from ..methods import METHODS
@@ -60,15 +76,7 @@ def _list(args: argparse.Namespace) -> int:
         return EXIT_OK
     entries = [(spec.name, "", spec.description, spec.params) for spec in DATASETS.values()]
     if args.what == "methods":
-        entries = [
-            (
-                s.name,
-                f"  [{s.family}{'; takes distances' if s.accepts_distances else ''}]",
-                s.description,
-                s.params,
-            )
-            for s in METHODS.values()
-        ]
+        entries = [(s.name, _method_tags(s), s.description, s.params) for s in METHODS.values()]
     for name, extra, description, params in entries:
         print(f"{name}{extra}\n    {description}")
         for p in params:

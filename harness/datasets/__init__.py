@@ -3,7 +3,7 @@
 Importing this package registers the built-in loaders.
 """
 
-from . import bundled, scenario, synthetic, tables  # noqa: F401  (registration)
+from . import annotated, bundled, scenario, synthetic, tables  # noqa: F401  (registration)
 from ._registry import DATASETS, DatasetSpec, get_dataset_spec, load_dataset, register_dataset
 from ._types import Dataset
 

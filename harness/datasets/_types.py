@@ -71,4 +71,8 @@ class Dataset:
                 h.update("\x1f".join(map(str, arr.ravel())).encode())
             else:
                 h.update(arr.tobytes())
+        row_ids = self.info.get("row_ids")
+        if row_ids is not None:
+            # Row ids decide how stored embeddings are matched to rows; datasets without ids hash as before.
+            h.update(b"ids" + "\x1f".join(map(str, row_ids)).encode())
         return h.hexdigest()[:16]

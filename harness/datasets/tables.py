@@ -297,6 +297,7 @@ def _label_values(df: pd.DataFrame, label: str, path: str, fmt: str) -> np.ndarr
             choices=("keep", "drop"),
         ),
         Param("min_rows", int, 10, "fewest rows accepted", check=at_least(2)),
+        Param("id_column", str, None, "column of row ids (not a feature); file embeddings are matched by it"),
     ),
     description="your own feature table: CSV, TSV, Parquet or a 2-D NumPy array",
     source="user file",
@@ -310,6 +311,7 @@ def table(
     standardise: bool = False,
     duplicates: str = "keep",
     min_rows: int = 10,
+    id_column: str | None = None,
 ) -> Dataset:
     """Load a table of numeric features, with optional class labels.
 
@@ -334,6 +336,10 @@ def table(
         or dropped (the first one stays).
     min_rows : int
         Fewest rows accepted, after dropping duplicates.
+    id_column : str, optional
+        Column of row ids: left out of the features, kept as text in
+        ``info["row_ids"]`` so that embeddings read from files can be matched
+        to rows by id (not for ``.npy``; not with ``duplicates: drop``).
 
     Returns
     -------
@@ -359,11 +365,14 @@ def table(
                 "no 'features' or 'label' for a .npy array, which has no column names "
                 "(all columns are features; give labels with 'labels_path')",
             )
+        if id_column is not None:
+            raise InputError(path, "no 'id_column' for a .npy array, which has no column names")
         X, names = _npy_features(path)
         labels: np.ndarray | None = None
         ignored: list[str] = []
+        row_ids = None
     else:
-        X, names, labels, ignored = _frame_features(path, fmt, features, label, min_rows)
+        X, names, labels, ignored, row_ids = _frame_features(path, fmt, features, label, min_rows, id_column)
     if X.shape[0] < min_rows:
         raise InputError(path, f"at least {min_rows} rows (min_rows), found {X.shape[0]}")
     remedy = (
@@ -379,6 +388,8 @@ def table(
             raise InputError(labels_path, "labels from either 'label' or 'labels_path', not both")
         labels = read_labels(labels_path, X.shape[0])
 
+    if row_ids is not None and duplicates == "drop":
+        raise InputError(path, "either 'id_column' or 'duplicates: drop' (dropping rows would lose ids)")
     X, labels, n_duplicates = _handle_duplicates(X, labels, duplicates, path)
     if X.shape[0] < min_rows:
         after = " after dropping duplicates" if duplicates == "drop" and n_duplicates else ""
@@ -398,7 +409,8 @@ def table(
             "duplicate_rows": n_duplicates,
             "duplicates": duplicates,
             "standardised": bool(standardise),
-        },
+        }
+        | ({"row_ids": row_ids, "id_column": id_column} if row_ids is not None else {}),
     )
 
 
@@ -413,18 +425,33 @@ def _npy_features(path: str) -> tuple[np.ndarray, list[Any]]:
 
 
 def _frame_features(
-    path: str, fmt: str, features: list[str] | None, label: str | None, min_rows: int
-) -> tuple[np.ndarray, list[Any], np.ndarray | None, list[str]]:
-    """Features, their names, labels and the text columns left out, of a CSV, TSV or Parquet table."""
+    path: str, fmt: str, features: list[str] | None, label: str | None, min_rows: int, id_column: str | None
+) -> tuple[np.ndarray, list[Any], np.ndarray | None, list[str], np.ndarray | None]:
+    """Features, their names, labels, text columns left out and row ids, of a CSV, TSV or Parquet table."""
     df = _read_frame(path, fmt)
     if df.shape[0] == 0:
         raise InputError(path, f"at least {min_rows} rows (min_rows), found 0")
+    row_ids = None
+    if id_column is not None:
+        if id_column not in df.columns:
+            raise InputError(
+                _column_where(path, id_column),
+                f"a column named in the header{suggest(id_column, list(df.columns))}",
+            )
+        if id_column == label or id_column in (features or []):
+            raise InputError(
+                _column_where(path, id_column), "an id column that is neither the label nor a feature"
+            )
+        row_ids = df[id_column].astype(str).to_numpy()
+        if len(set(row_ids)) != len(row_ids):
+            raise InputError(_column_where(path, id_column), "each id once; ids repeat")
+        df = df.drop(columns=[id_column])
     names, ignored = _pick_columns(df, features, label, path, fmt)
     if not names:
         raise InputError(path, "at least one feature column; 'features' is empty")
     X = np.column_stack([_numeric_column(df, c, path, fmt) for c in names])
     labels = _label_values(df, label, path, fmt) if label is not None else None
-    return X, list(names), labels, ignored
+    return X, list(names), labels, ignored, row_ids
 
 
 def _handle_duplicates(

@@ -3,9 +3,10 @@
 Importing this package registers the built-in methods.
 """
 
-from . import builtin  # registers the built-in methods
+from . import builtin, files, modern  # register the built-in methods, file embeddings and adapters
 from ._fit import DegenerateEmbedding, fit_embedding
 from ._registry import METHODS, MethodSpec, register_method
+from ._threads import cell_threads, thread_budget
 from .lookup import get_method_spec
 from .plugins import check_method
 
@@ -14,8 +15,12 @@ __all__ = [
     "DegenerateEmbedding",
     "MethodSpec",
     "builtin",
+    "cell_threads",
     "check_method",
+    "files",
     "fit_embedding",
     "get_method_spec",
+    "modern",
     "register_method",
+    "thread_budget",
 ]

@@ -75,6 +75,9 @@ def fit_embedding(
     values = {p.name: p.default for p in spec.params}
     values.update(params)
     estimator = spec.build(n_components, seed, precomputed, **values)
+    if getattr(estimator, "needs_dataset", False):
+        # Methods that read a stored embedding match its rows to the dataset's ids.
+        estimator.dataset = dataset
     data = dataset.distances if precomputed else dataset.X
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

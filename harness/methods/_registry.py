@@ -38,6 +38,18 @@ class MethodSpec:
         Memory grows as n squared (dense pairwise matrices).
     source : str
         Publication or library behind it.
+    places_new_points : bool
+        The fitted estimator has ``transform`` for points it was not fitted on.
+    requires : tuple of str, optional
+        ``(module, distribution)`` of an optional package the method needs
+        (imported only when it is fitted); empty for methods of the base install.
+    content_identity : callable, optional
+        ``content_identity(params) -> str`` for methods whose output depends on
+        something outside their parameters (a file's bytes); the cache key
+        includes it.
+    check_dataset : callable, optional
+        ``check_dataset(params, dataset, dimensions) -> str``: a reason the
+        method cannot run on that dataset ("" when it can), found when planning.
     """
 
     name: str
@@ -49,6 +61,33 @@ class MethodSpec:
     randomized: bool = True
     quadratic_memory: bool = False
     source: str = ""
+    places_new_points: bool = False
+    requires: tuple[str, ...] = ()
+    content_identity: Callable[[dict[str, Any]], str] | None = None
+    check_dataset: Callable[..., str] | None = None
+
+    def missing_package(self) -> str | None:
+        """The distribution to install when the method's package is absent, else ``None``."""
+        if not self.requires:
+            return None
+        import importlib.util
+
+        try:
+            found = importlib.util.find_spec(self.requires[0]) is not None
+        except (ImportError, ValueError):
+            found = False
+        return None if found else self.requires[1]
+
+    def package_version(self) -> str | None:
+        """Installed version of the method's optional package (``None`` for base methods)."""
+        if not self.requires:
+            return None
+        from importlib import metadata
+
+        try:
+            return metadata.version(self.requires[1])
+        except metadata.PackageNotFoundError:
+            return None
 
 
 METHODS: dict[str, MethodSpec] = {}
@@ -64,6 +103,10 @@ def register_method(
     randomized: bool = True,
     quadratic_memory: bool = False,
     source: str = "",
+    places_new_points: bool = False,
+    requires: tuple[str, ...] = (),
+    content_identity: Callable[[dict[str, Any]], str] | None = None,
+    check_dataset: Callable[..., str] | None = None,
 ) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
     """Decorator that adds an estimator builder to :data:`METHODS`."""
 
@@ -78,6 +121,10 @@ def register_method(
             randomized,
             quadratic_memory,
             source,
+            places_new_points,
+            requires,
+            content_identity,
+            check_dataset,
         )
         return fn
 

@@ -40,6 +40,7 @@ def _neighbours(default: int = 10) -> Param:
 @register_method(
     "pca",
     params=(Param("whiten", bool, False, "scale components to unit variance"),),
+    places_new_points=True,
     description="principal component analysis (full SVD)",
     family="linear",
     randomized=False,
@@ -52,6 +53,7 @@ def build_pca(n_components: int, seed: int, precomputed: bool, *, whiten: bool) 
 
 @register_method(
     "random_projection",
+    places_new_points=True,
     description="Gaussian random projection",
     family="linear",
     source="Johnson and Lindenstrauss 1984 (scikit-learn GaussianRandomProjection)",
@@ -71,6 +73,7 @@ def build_random_projection(n_components: int, seed: int, precomputed: bool) -> 
         Param("gamma", float, None, "kernel width for rbf/poly/sigmoid (default 1/n_features)", _positive),
         Param("degree", int, 3, "degree of the poly kernel", at_least(1)),
     ),
+    places_new_points=True,
     description="kernel principal component analysis",
     family="spectral",
     quadratic_memory=True,
@@ -169,6 +172,7 @@ def build_sammon(
 @register_method(
     "isomap",
     params=(_neighbours(),),
+    places_new_points=True,
     description="Isomap: classical scaling of graph geodesic distances",
     family="distance",
     accepts_distances=True,
@@ -192,6 +196,7 @@ def build_isomap(n_components: int, seed: int, precomputed: bool, *, n_neighbors
         Param("method", str, "standard", "LLE variant", choices=("standard", "modified", "hessian", "ltsa")),
         Param("reg", float, 1e-3, "regularisation of the local weight fits", _positive),
     ),
+    places_new_points=True,
     description="locally linear embedding",
     family="spectral",
     source="Roweis and Saul 2000; Zhang and Wang 2006; Donoho and Grimes 2003; "

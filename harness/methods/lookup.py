@@ -26,7 +26,15 @@ def get_method_spec(name: str, where: str = "", roots: Sequence[str] = ()) -> Me
     if ":" in name:
         return plugin_spec(name, where, roots)
     if name in METHODS:
-        return METHODS[name]
+        spec = METHODS[name]
+        missing = spec.missing_package()
+        if missing is not None:
+            raise InputError(
+                where,
+                f"method '{name}' needs the package '{missing}', which is not installed: "
+                f"pip install 'foldbench[methods]'",
+            )
+        return spec
     target = entry_point_target(name)
     if target is not None:
         return replace(plugin_spec(target, where, roots), name=name)

@@ -61,12 +61,17 @@ class MeasureResult:
         Keys of ``values`` that are estimates rather than exact.
     curve : pandas.DataFrame or None
         Columns ``K``, ``Q_NX``, ``R_NX`` for K = 1..curve_k_max.
+    points : pandas.DataFrame or None
+        One row per query point (every point when exact): ``point`` (its row
+        index) and its own ``trustworthiness@k``, ``continuity@k`` and
+        ``knn_recall@k`` terms; the mean of a column is the measure.
     """
 
     values: dict[str, float]
     intervals: dict[str, tuple[float, float]] = field(default_factory=dict)
     estimated: frozenset[str] = frozenset()
     curve: pd.DataFrame | None = None
+    points: pd.DataFrame | None = None
 
 
 def _matrix(a: object, where: str) -> np.ndarray:
@@ -262,7 +267,20 @@ def score(
 
     big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
     curve = pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})
-    return MeasureResult(values, intervals, frozenset(intervals), curve)
+    return MeasureResult(values, intervals, frozenset(intervals), curve, _points(local.terms, queries, ks))
+
+
+#: Per-point terms kept in a cell's point table (where each point fails, not only how much).
+POINT_MEASURES = ("trustworthiness", "continuity", "knn_recall")
+
+
+def _points(terms: dict[str, np.ndarray], queries: np.ndarray, ks: Sequence[int]) -> pd.DataFrame:
+    """The per-point table: row index and the point's term of each local measure at each k."""
+    columns: dict[str, np.ndarray] = {"point": queries.astype(np.int64)}
+    for k in ks:
+        for name in POINT_MEASURES:
+            columns[f"{name}@{k}"] = terms[f"{name}@{k}"]
+    return pd.DataFrame(columns)
 
 
 def evaluate(

@@ -56,6 +56,7 @@ def write_report(run_dir: str | Path | RunFolder, *, quality: str = "mean_rank",
     from .analysis import analyse
     from .page import render
     from .paper import tables_latex, tables_markdown
+    from .pointwise import point_defects
     from .verdict import verdict
 
     folder = run_dir if isinstance(run_dir, RunFolder) else RunFolder.open(run_dir)
@@ -70,11 +71,22 @@ def write_report(run_dir: str | Path | RunFolder, *, quality: str = "mean_rank",
         "cd": fig.critical_difference_diagram(analysis, out / FIGURES["cd"]),
         "pareto": fig.quality_vs_time(analysis, out / FIGURES["pareto"]),
     }
+    defects = point_defects(analysis)
+    for name, per_method in defects.items():
+        drawn[f"points:{name}"] = fig.point_defect_maps(
+            analysis, per_method, out / f"points_{_file_name(name)}.png"
+        )
     folder.write_text("tables.md", tables_markdown(analysis))
     folder.write_text("tables.tex", tables_latex(analysis))
-    page = folder.write_text("report.html", render(analysis, verdict(analysis), drawn, foldbench_version()))
+    page = folder.write_text(
+        "report.html", render(analysis, verdict(analysis), drawn, foldbench_version(), defects, datasets)
+    )
     log.info("report written to %s", page)
     return page
+
+
+def _file_name(name: str) -> str:
+    return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
 
 
 def _datasets(folder: RunFolder, notes: list[str]) -> dict[str, Dataset]:

@@ -23,6 +23,7 @@ from ..metrics import higher_is_better
 from ..run.atomic import write_bytes
 from . import palette
 from .analysis import Analysis
+from .pointwise import PointDefects
 
 DPI = 110
 #: Pairs drawn in a Shepard diagram panel; enough to see the shape, few enough to stay light.
@@ -525,3 +526,49 @@ def _shared_legend(fig: Figure, axes: np.ndarray, rows: int) -> None:
         ncol=min(len(seen), 8),
         bbox_to_anchor=(0.5, 1.0 + 0.06 / rows),
     )
+
+
+def point_defect_maps(analysis: Analysis, defects: list[PointDefects], path: Path) -> Path | None:
+    """One dataset: its embeddings coloured by per-point trustworthiness (top) and continuity defect.
+
+    One column per method (its shown configuration, lowest ok seed); one colour
+    scale shared by every panel, capped at the 99th percentile of all defects so
+    that a few extreme points do not wash the rest out.
+    """
+    panels: list[tuple[PointDefects, np.ndarray]] = []
+    for p in defects:
+        emb = analysis.run.embedding(p.key)
+        if emb is not None and len(emb) > p.points.max(initial=-1):
+            panels.append((p, emb))
+    if not panels:
+        return None
+    top = float(np.quantile(np.concatenate([np.r_[p.trust, p.cont] for p, _ in panels]), 0.99)) or 1.0
+    size = 2.1
+    with rc_context(palette.style()):
+        fig, axes = _grid(2, len(panels), figsize=(size * len(panels) + 1.2, 2 * size + 0.5))
+        for j, (p, emb) in enumerate(panels):
+            for i, (values, what) in enumerate(((p.trust, "trustworthiness"), (p.cont, "continuity"))):
+                ax = axes[i, j]
+                ax.set_xticks([])
+                ax.set_yticks([])
+                pts = emb[p.points]
+                y = pts[:, 1] if pts.shape[1] > 1 else np.zeros(len(pts))
+                order = np.argsort(values)  # worst points drawn last, on top
+                sc = ax.scatter(
+                    pts[order, 0],
+                    y[order],
+                    c=values[order],
+                    cmap=palette.DEFECT_MAP,
+                    vmin=0.0,
+                    vmax=top,
+                    s=3 if len(pts) > 500 else 7,
+                    linewidths=0,
+                )
+                ax.set_aspect("equal", adjustable="datalim")
+                if i == 0:
+                    ax.set_title(analysis.label(p.method), fontsize=9)
+                if j == 0:
+                    ax.set_ylabel(f"{what}\ndefect @{p.k}", fontsize=8, color=palette.INK)
+        bar = fig.colorbar(sc, ax=axes.ravel().tolist(), shrink=0.8, pad=0.02)
+        bar.set_label("defect of the point (0 = kept; shared scale)", fontsize=8)
+        return _save(fig, path)

@@ -18,10 +18,12 @@ from string import Template
 import pandas as pd
 
 from ..compare.tables import arrow
+from ..datasets import Dataset
 from ..metrics import higher_is_better
 from ..text import interval_text, mean_sd, number
 from . import palette
 from .analysis import Analysis, is_estimated
+from .pointwise import PointDefects, concentration_sentence, defect_by_class
 from .tables import best_mask
 from .verdict import friedman_paragraph
 
@@ -232,6 +234,43 @@ def _pictures(figures: Mapping[str, Path | None]) -> str:
     return "\n".join(x for x in (_figure(figures.get(k), alt, cap) for k, alt, cap in parts) if x)
 
 
+def _failures(
+    figures: Mapping[str, Path | None],
+    defects: Mapping[str, list[PointDefects]],
+    datasets: Mapping[str, Dataset],
+) -> str:
+    if not defects:
+        return "<p>No per-point tables in this run (they are written for every ok cell).</p>"
+    out = [
+        "<p class='small'>Each point coloured by its own share of the defect: its trustworthiness "
+        "defect (top row: neighbours in the picture that were not neighbours in the data) and its "
+        "continuity defect (bottom row: data neighbours the picture pushed away). One seed per "
+        "method; one colour scale per dataset. Pale points kept their neighbourhood.</p>"
+    ]
+    for name, per_method in defects.items():
+        out.append(f"<h3>{_e(name)}</h3>")
+        out.append(
+            _figure(
+                figures.get(f"points:{name}"),
+                f"per-point defects on {name}",
+                _e(concentration_sentence(per_method)),
+            )
+        )
+        by_class = defect_by_class(per_method, datasets.get(name))
+        if by_class is not None and not by_class.empty:
+            rows = [[_e(c)] + [_num(v) for v in r] for c, r in zip(by_class.index, by_class.to_numpy())]
+            out.append(
+                "<p class='small'>Mean trustworthiness defect by class (higher = the method damages "
+                "that class's neighbourhoods more).</p>"
+                + table(
+                    ["class", *(_e(m) for m in by_class.columns)],
+                    rows,
+                    [False] + [True] * len(by_class.columns),
+                )
+            )
+    return "\n".join(x for x in out if x)
+
+
 def _stability(analysis: Analysis) -> str:
     st = analysis.stability.dropna(subset=["knn_overlap"])
     if st.empty:
@@ -261,7 +300,12 @@ def _stability(analysis: Analysis) -> str:
 
 
 def render(
-    analysis: Analysis, sentences: Sequence[str], figures: Mapping[str, Path | None], version: str = ""
+    analysis: Analysis,
+    sentences: Sequence[str],
+    figures: Mapping[str, Path | None],
+    version: str = "",
+    defects: Mapping[str, list[PointDefects]] | None = None,
+    datasets: Mapping[str, Dataset] | None = None,
 ) -> str:
     """The whole page as text.
 
@@ -275,6 +319,10 @@ def render(
         its PNG, or ``None`` when there is none.
     version : str
         foldbench's version, for the footer.
+    defects : mapping, optional
+        Per dataset, the per-point defects of each method (``points:<dataset>`` figures).
+    datasets : mapping, optional
+        The reloaded datasets (labels for the defect-by-class tables).
     """
     run, suite = analysis.run, analysis.run.suite
     counts = run.scores["status"].value_counts().to_dict()
@@ -297,6 +345,7 @@ def render(
         pareto=_pareto(analysis, figures),
         datasets=_datasets(analysis),
         pictures=_pictures(figures),
+        failures=_failures(figures, defects or {}, datasets or {}),
         stability=_stability(analysis),
         method=(_TEMPLATES / "method.html").read_text(encoding="utf-8"),
         footer=f"foldbench {_e(version)} · written {stamp} · suite hash "

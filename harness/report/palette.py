@@ -38,6 +38,8 @@ QUALITY_MAP = LinearSegmentedColormap.from_list("foldbench_quality", ["#fbf5e6",
 
 #: Map for continuous colouring of points (a latent coordinate).
 LATENT_MAP = LinearSegmentedColormap.from_list("foldbench_latent", [SLATE, "#b8c2b0", OCHRE])
+#: Per-point defect: pale when a point keeps its neighbourhood, deep brick where it fails.
+DEFECT_MAP = LinearSegmentedColormap.from_list("foldbench_defect", [MIST, "#e7c48a", BRICK, "#4a1d12"])
 
 
 def category_colours(n: int) -> list[str]:

@@ -27,6 +27,7 @@ import pandas as pd
 import platformdirs
 
 from ..config import CellStatus, Scoring
+from ..methods import METHODS
 from .atomic import write_json, write_npy
 from .cells import Cell, CellResult, KnownFit
 from .manifest import package_versions
@@ -73,7 +74,21 @@ def cache_key(cell: Cell) -> str:
         "seed": cell.seed,
         "libraries": _library_versions(),
     }
+    spec = METHODS.get(cell.use)
+    if spec is not None and spec.content_identity is not None:
+        doc["content"] = spec.content_identity(cell.params_dict())
+    package = _method_package(cell.use)
+    if package is not None:
+        # Only methods from optional packages carry this, so base-install keys stay as they were.
+        doc["method_package"] = package
     return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()[:32]
+
+
+def _method_package(use: str) -> str | None:
+    spec = METHODS.get(use)
+    if spec is None or not spec.requires:
+        return None
+    return f"{spec.requires[1]}=={spec.package_version()}"
 
 
 def scoring_digest(scoring: Scoring) -> str:

@@ -79,6 +79,7 @@ class CellResult:
     intervals: dict[str, tuple[float, float]] = field(default_factory=dict)
     estimated: tuple[str, ...] = ()
     curve: pd.DataFrame | None = None
+    points: pd.DataFrame | None = None
     fit_seconds: float = float("nan")
     fit_peak_mb: float = float("nan")
     score_seconds: float = float("nan")
@@ -117,6 +118,8 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
         for m in suite.methods:
             spec = get_method_spec(m.use, roots=suite.plugin_roots)
             reason = _refusal(spec, ds, suite.run.quadratic_limit)
+            if not reason and spec.check_dataset is not None:
+                reason = spec.check_dataset(dict(m.params), ds, suite.dimensions)
             for point in m.grid_points():
                 for seed in suite.seeds:
                     cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)

@@ -147,5 +147,6 @@ def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) ->
         intervals=dict(measured.intervals),
         estimated=tuple(sorted(measured.estimated)),
         curve=measured.curve,
+        points=measured.points,
         score_seconds=time.perf_counter() - t0,
     )

@@ -22,6 +22,7 @@ from typing import Any
 from ..config import BACKEND_NAMES, CellStatus
 from ..datasets import Dataset
 from ..errors import InputError
+from ..methods import METHODS
 from ..suite import Suite, load_datasets, load_suite
 from .backends import Execution, execute
 from .cache import EmbeddingCache
@@ -241,11 +242,15 @@ def _from_cache(
 
 def _manifest(suite: Suite, datasets: dict[str, Dataset], cells: int) -> dict[str, Any]:
     plugin_modules = tuple(m.use.split(":", 1)[0] for m in suite.methods if m.is_plugin)
+    # Optional method packages (umap-learn, openTSNE, ...) are recorded like plug-ins' packages.
+    method_modules = tuple(
+        METHODS[m.use].requires[0] for m in suite.methods if m.use in METHODS and METHODS[m.use].requires
+    )
     return {
         "suite": {"name": suite.name, "path": str(Path(suite.path).resolve()), "hash": suite.digest},
         "seeds": list(suite.seeds),
         "started": _now(),
-        "environment": environment(plugin_modules),
+        "environment": environment(plugin_modules, method_modules),
         "datasets": {
             name: {"fingerprint": ds.fingerprint(), "n": ds.n, "n_features": ds.n_features}
             for name, ds in datasets.items()

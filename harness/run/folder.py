@@ -7,6 +7,7 @@ Layout of ``<root>/<suite>/<run id>/``::
     cells/<key>.json      one per finished cell (written last: its presence marks the cell done)
     embeddings/<key>.npy  the embedding of an ok cell
     curves/<key>.csv      the co-ranking curve (K, Q_NX, R_NX) of an ok cell
+    points/<key>.csv      per-point trustworthiness, continuity and k-NN recall terms of an ok cell
     scores.csv            a row per cell (rebuilt from cells/)
     summary.csv           mean, spread and interval per dataset x method x params, with ranks
     ranking.md            the ranked tables
@@ -19,6 +20,7 @@ that a person can open without the package.
 from __future__ import annotations
 
 import json
+import logging
 from dataclasses import asdict
 from datetime import UTC, datetime
 from functools import cached_property
@@ -33,6 +35,8 @@ from ..suite import Suite, parse_suite
 from ..text import exception_line, params_text
 from . import atomic
 from .cells import CellResult
+
+logger = logging.getLogger(__name__)
 
 ID_COLUMNS = ["dataset", "method", "params", "seed"]
 #: Suffixes of the columns holding the bounds of an estimated value's 95% interval.
@@ -227,6 +231,8 @@ class RunFolder:
             atomic.write_npy(self.path / "embeddings" / f"{key}.npy", result.embedding)
         if result.curve is not None:
             atomic.write_csv(self.path / "curves" / f"{key}.csv", result.curve)
+        if result.points is not None:
+            atomic.write_csv(self.path / "points" / f"{key}.csv", result.points)
         atomic.write_json(self.path / "cells" / f"{key}.json", cell_record(result))
         self._forget()
 
@@ -324,3 +330,33 @@ class RunFolder:
         """The stored co-ranking curve of the cell with this key, or ``None``."""
         path = self.path / "curves" / f"{key}.csv"
         return pd.read_csv(path) if path.exists() else None
+
+    def points(self, key: str) -> pd.DataFrame | None:
+        """The per-point table of the cell with this key, or ``None`` when absent or damaged.
+
+        Columns ``point`` (row index into the dataset) and the point's own
+        ``trustworthiness@k``, ``continuity@k`` and ``knn_recall@k`` terms; the
+        mean of a column is the measure in ``scores.csv``.  A table whose
+        indices repeat or whose terms leave [0, 1] is not used (logged).
+        """
+        path = self.path / "points" / f"{key}.csv"
+        if not path.exists():
+            return None
+        try:
+            table = pd.read_csv(path)
+            terms = table.drop(columns=["point"]).to_numpy(dtype=np.float64)
+            index = table["point"].to_numpy()
+        except (OSError, ValueError, KeyError, pd.errors.ParserError) as exc:
+            logger.warning("%s: points/%s.csv is unreadable (%s); not used", self.where, key, exc)
+            return None
+        bad = (
+            not np.issubdtype(index.dtype, np.integer)
+            or len(np.unique(index)) != len(index)
+            or (index.size and index.min() < 0)
+            or not np.isfinite(terms).all()
+            or (terms.size and (terms.min() < 0 or terms.max() > 1))
+        )
+        if bad:
+            logger.warning("%s: points/%s.csv holds impossible values; not used", self.where, key)
+            return None
+        return table

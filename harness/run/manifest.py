@@ -107,8 +107,13 @@ def git_commit(folder: str | None = None) -> str | None:
         return None
 
 
-def environment(plugin_modules: tuple[str, ...] = ()) -> dict[str, Any]:
-    """Everything about this machine and its software that can move results."""
+def environment(plugin_modules: tuple[str, ...] = (), method_modules: tuple[str, ...] = ()) -> dict[str, Any]:
+    """Everything about this machine and its software that can move results.
+
+    ``plugin_modules`` are the suite's plug-ins (their packages and sources are
+    recorded); ``method_modules`` the optional packages of built-in adapters
+    (their versions are recorded).
+    """
     return {
         "python": sys.version.split()[0],
         "implementation": platform.python_implementation(),
@@ -116,7 +121,7 @@ def environment(plugin_modules: tuple[str, ...] = ()) -> dict[str, Any]:
         "machine": platform.machine(),
         "cpu_model": cpu_model(),
         "cpu_count": os.cpu_count(),
-        "packages": package_versions(plugin_modules),
+        "packages": package_versions(plugin_modules + method_modules),
         "blas": blas_info(),
         "thread_env": thread_variables(),
         "plugins": plugin_sources(plugin_modules),

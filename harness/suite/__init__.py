@@ -92,7 +92,9 @@ def parse_suite(text: str, path: str = "<suite>", *, resolve_plugins: bool = Tru
     try:
         doc = _document(read_yaml(text))
         datasets = sections.dataset_entries(doc["datasets"], "datasets", base)
-        methods = sections.method_entries(doc["methods"], "methods", roots, resolve_plugins=resolve_plugins)
+        methods = sections.method_entries(
+            doc["methods"], "methods", roots, resolve_plugins=resolve_plugins, base=base
+        )
         scoring = sections.scoring(doc.get("measures"), "measures")
         expect = parse_expectations(
             doc.get("expect") or [],

@@ -102,13 +102,19 @@ def dataset_entries(raw: Any, where: str, base: Path) -> tuple[DatasetEntry, ...
 
 
 def method_entries(
-    raw: Any, where: str, roots: tuple[str, ...], *, resolve_plugins: bool = True
+    raw: Any,
+    where: str,
+    roots: tuple[str, ...],
+    *,
+    resolve_plugins: bool = True,
+    base: Path | None = None,
 ) -> tuple[MethodEntry, ...]:
     """The ``methods`` list.
 
     With ``resolve_plugins`` false, plug-in entries are taken as written (their
     parameters were checked when the suite first ran), so a finished run folder
-    can be read without importing the plug-in.
+    can be read without importing the plug-in.  Relative file paths in
+    parameters (``embedding_file``'s ``path``) are resolved against ``base``.
     """
     items = listed(raw, where, "methods")
     if not items:
@@ -130,7 +136,14 @@ def method_entries(
             out.append(MethodEntry(name, use, params, grid, "other"))
             continue
         spec = get_method_spec(use, f"{at}.use", roots=roots)
-        params = validate_params(item.get("params"), spec.params, f"{at}.params", fill_defaults=False)
+        raw_params = dict(mapping(item.get("params") or {}, f"{at}.params", "parameters"))
+        for key in _PATH_PARAMS:
+            declared = any(p.name == key for p in spec.params)
+            if declared and isinstance(raw_params.get(key), str) and base is not None:
+                raw_params[key] = str((base / raw_params[key]).resolve())
+        params = validate_params(raw_params, spec.params, f"{at}.params", fill_defaults=False)
+        if any(p.name == "path" for p in spec.params) and params.get("path") is None:
+            raise InputError(f"{at}.params.path", "missing: the file to read")
         grid = _grid(item.get("grid"), spec, params, f"{at}.grid")
         points = math.prod(len(v) for v in grid.values())
         if points > MAX_GRID_POINTS:

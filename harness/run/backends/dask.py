@@ -32,6 +32,7 @@ from threadpoolctl import threadpool_limits
 from ...config import CellStatus, Scoring
 from ...datasets import Dataset
 from ...errors import InputError
+from ...methods import thread_budget
 from ...text import exception_line
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
@@ -268,7 +269,7 @@ def _task(
 
     def work() -> None:
         try:
-            with threadpool_limits(limits=_TASK_THREADS):
+            with threadpool_limits(limits=_TASK_THREADS), thread_budget(_TASK_THREADS):
                 box["result"] = compute_cell(cell, dataset, scoring, known, roots)
         except BaseException as exc:  # handed to the task's thread, which raises it to Dask
             box["error"] = exc

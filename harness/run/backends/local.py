@@ -34,6 +34,7 @@ from threadpoolctl import threadpool_limits
 
 from ...config import CellStatus, Scoring
 from ...datasets import Dataset
+from ...methods import thread_budget
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
 from ._base import Execution
@@ -96,7 +97,7 @@ def _child(
     root = logging.getLogger()
     root.handlers[:] = [collect]
     root.setLevel(logging.WARNING)
-    with threadpool_limits(limits=threads):
+    with threadpool_limits(limits=threads), thread_budget(threads):
         result = compute_cell(cell, _unstage(where), scoring, known, roots)
     result.warnings = tuple(dict.fromkeys(collect.lines))
     conn.send(result)

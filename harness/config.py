@@ -21,8 +21,9 @@ def foldbench_version() -> str:
         return "0+unknown"
 
 
-#: Names of the execution backends (the registry in :mod:`harness.run.backends` fills them in).
-BACKEND_NAMES = ("local", "dask")
+#: Names of the execution backends, known to the layers below the runner (suite validation, the CLI);
+#: :func:`harness.run.backends.register_backend` adds the name of every backend it registers.
+BACKEND_NAMES: list[str] = ["local", "dask"]
 
 
 class CellStatus(StrEnum):

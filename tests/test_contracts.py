@@ -259,3 +259,21 @@ def test_the_import_and_lint_contracts_hold(command):
         [_tool(command[0]), *command[1:]], cwd=REPO, capture_output=True, text=True, timeout=600
     )
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-2000:]
+
+
+def test_a_registered_backend_is_accepted_by_suites_and_the_command_line():
+    # A backend added with register_backend needs no second list to be usable by name.
+    from harness.config import BACKEND_NAMES
+    from harness.run.backends import BACKENDS, register_backend
+    from harness.suite import parse_suite
+
+    try:
+        register_backend("elsewhere", BACKENDS["local"])
+        suite = parse_suite(
+            "name: b\ndatasets: [iris]\nmethods: [pca]\nrun: {backend: elsewhere}\n", "b.yaml"
+        )
+        assert suite.run.backend == "elsewhere"
+    finally:
+        BACKENDS.pop("elsewhere", None)
+        if "elsewhere" in BACKEND_NAMES:
+            BACKEND_NAMES.remove("elsewhere")

@@ -76,7 +76,14 @@ def _list(args: argparse.Namespace) -> int:
         return EXIT_OK
     entries = [(spec.name, "", spec.description, spec.params) for spec in DATASETS.values()]
     if args.what == "methods":
+        from ..methods.plugins import entry_point_names
+
         entries = [(s.name, _method_tags(s), s.description, s.params) for s in METHODS.values()]
+        entries += [
+            (name, "  [plug-in]", "installed through the 'foldbench.methods' entry-point group", ())
+            for name in entry_point_names()
+            if name not in METHODS
+        ]
     for name, extra, description, params in entries:
         print(f"{name}{extra}\n    {description}")
         for p in params:

@@ -13,7 +13,7 @@ from __future__ import annotations
 import threading
 from collections.abc import Callable, Iterator
 
-from ...config import Scoring
+from ...config import BACKEND_NAMES, Scoring
 from ...datasets import Dataset
 from ...errors import InputError, suggest
 from ..cache import EmbeddingCache
@@ -29,6 +29,8 @@ BACKENDS: dict[str, Callable[[], Backend]] = {}
 def register_backend(name: str, factory: Callable[[], Backend]) -> None:
     """Make a backend available by name (``run.backend`` in a suite, ``--backend``)."""
     BACKENDS[name] = factory
+    if name not in BACKEND_NAMES:
+        BACKEND_NAMES.append(name)
 
 
 def get_backend(name: str, where: str = "--backend") -> Backend:

@@ -16,14 +16,14 @@ _COMMON_DOC = """
         Output dimension.
     hidden : tuple of int, default=(128, 128)
         Width of each hidden layer; ``()`` makes the map affine (``Y = X W + b``).
-    activation : {"relu", "tanh", "softplus", "identity"}, default="relu"
+    activation : {{"relu", "tanh", "softplus", "identity"}}, default="relu"
         Activation after every hidden layer (the output layer is linear).
-    epochs : int
+    epochs : int, default={epochs}
         Passes over the training rows at most.
-    batch_size : int
+    batch_size : int, default={batch_size}
         Rows per minibatch; the loss is taken over the pairs inside each one.
         The rows are cut into ``floor(n / batch_size)`` near-equal minibatches.
-    learning_rate : float, default=1e-3
+    learning_rate : float, default={learning_rate}
         Adam step size (Kingma and Ba 2015; betas 0.9 and 0.999).
     weight_decay : float, default=0.0
         Coefficient of the penalty ``weight_decay / 2 * sum(W**2)`` over weight
@@ -63,9 +63,7 @@ class ParametricSammon(ParametricEmbedding):
     ``transform`` returns coordinates in the units of the input.
 
     Parameters
-    ----------""" + _COMMON_DOC.replace("epochs : int", "epochs : int, default=300").replace(
-        "batch_size : int", "batch_size : int, default=256"
-    )
+    ----------""" + _COMMON_DOC.format(epochs=300, batch_size=256, learning_rate="1e-3")
 
     def __init__(
         self,
@@ -106,9 +104,9 @@ class ParametricMDS(ParametricEmbedding):
     stress : {"raw", "kruskal"}, default="raw"
         ``"raw"``: raw stress divided by the sum of squared target distances of
         the minibatch; ``"kruskal"``: Kruskal's stress-1, normalised by the sum
-        of squared embedded distances.""" + _COMMON_DOC.replace(
-        "epochs : int", "epochs : int, default=300"
-    ).replace("batch_size : int", "batch_size : int, default=256")
+        of squared embedded distances.""" + _COMMON_DOC.format(
+        epochs=300, batch_size=256, learning_rate="1e-3"
+    )
 
     def __init__(
         self,
@@ -162,9 +160,9 @@ class ParametricTSNE(ParametricEmbedding):
         Degrees of freedom of the Student-t kernel; ``"auto"`` means
         ``max(1, n_components - 1)`` (van der Maaten 2009): 1, the Cauchy
         kernel of ordinary t-SNE, for one or two output dimensions, and
-        lighter tails as the dimension grows.""" + _COMMON_DOC.replace(
-        "epochs : int", "epochs : int, default=30"
-    ).replace("batch_size : int", "batch_size : int, default=300")
+        lighter tails as the dimension grows.""" + _COMMON_DOC.format(
+        epochs=30, batch_size=300, learning_rate="1e-2"
+    )
 
     _data_units = False
 

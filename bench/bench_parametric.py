@@ -7,15 +7,18 @@ Two rows, each fitted with the registry's default parameters and the same seed:
 * ``parametric_sammon`` on machine_fleet (600 x 12) against our Sammon mapping (the
   ``sammon`` method); target: at most 10 s.
 
-Both sides of a row are timed in the same process, one after the other, so the ratio
-is meaningful even when the machine is busy; the load average is printed with the
-table.  Quality columns: trustworthiness@10 (t-SNE rows) and Sammon's stress (Sammon
-rows) of each embedding of the training points.
+Both sides of a row are timed in the same process, one after the other, under the same
+thread limit (``--threads``, default 1: what the runner gives each cell when it runs one
+cell per core; BLAS and OpenMP pools alike), so the ratio is meaningful even when the
+machine is busy; the load average is printed with the table.
+Quality columns: trustworthiness@10 (t-SNE rows) and Sammon's stress (Sammon rows) of
+each embedding of the training points.
 
 Usage::
 
     python bench/bench_parametric.py              # one fit of each (about a minute)
     python bench/bench_parametric.py --repeats 3  # median of three fits of each
+    python bench/bench_parametric.py --threads 2  # let BLAS/OpenMP use two threads
 """
 
 from __future__ import annotations
@@ -29,6 +32,7 @@ from pathlib import Path
 
 import numpy as np
 from scipy.spatial.distance import pdist
+from threadpoolctl import threadpool_limits
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
@@ -57,34 +61,41 @@ def quality(measure: str, X: np.ndarray, Y: np.ndarray) -> float:
     return float(evaluate(X, Y, k=10)["trustworthiness"])
 
 
-def timed_fit(method: str, X: np.ndarray, seed: int) -> tuple[float, np.ndarray]:
+def timed_fit(method: str, X: np.ndarray, seed: int, threads: int) -> tuple[float, np.ndarray]:
     spec = METHODS[method]
     estimator = spec.build(2, seed, False, **{p.name: p.default for p in spec.params})
-    t0 = time.perf_counter()
-    Y = estimator.fit_transform(X)
-    return time.perf_counter() - t0, np.asarray(Y)
+    if hasattr(estimator, "n_jobs"):
+        estimator.set_params(n_jobs=threads)
+    with threadpool_limits(limits=threads):
+        t0 = time.perf_counter()
+        Y = estimator.fit_transform(X)
+        return time.perf_counter() - t0, np.asarray(Y)
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=1, help="fits of each method (median reported)")
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--threads", type=int, default=1, help="BLAS/OpenMP threads for every fit")
     args = parser.parse_args()
 
     header = (
         f"{'method':<18} {'dataset':<14} {'n x d':>9} {'fit s':>7} {'target':>7} "
         f"{'reference':<10} {'ref s':>7} {'ratio':>6} {'measure':<19} {'ours':>7} {'ref':>7}"
     )
-    print(f"cores: {os.cpu_count()}, load average at start: {os.getloadavg()[0]:.1f}")
+    print(
+        f"cores: {os.cpu_count()}, threads per fit: {args.threads}, "
+        f"load average at start: {os.getloadavg()[0]:.1f}"
+    )
     print(header)
     print("-" * len(header))
     for method, reference, dataset, measure, target in ROWS:
         X = load_dataset(dataset).X
         ours, ref = [], []
         for r in range(args.repeats):
-            seconds, Y = timed_fit(method, X, args.seed + r)
+            seconds, Y = timed_fit(method, X, args.seed + r, args.threads)
             ours.append(seconds)
-            ref_seconds, Y_ref = timed_fit(reference, X, args.seed + r)
+            ref_seconds, Y_ref = timed_fit(reference, X, args.seed + r, args.threads)
             ref.append(ref_seconds)
         t_ours, t_ref = statistics.median(ours), statistics.median(ref)
         print(

@@ -31,7 +31,7 @@ _COMMON_DOC = """
     validation_fraction : float, default=0.1
         Share of rows held out to decide when to stop; 0 trains for all epochs.
         Skipped when either side of the split would have fewer than two rows.
-    patience : int, default=10
+    patience : int, default={patience}
         Epochs without a relative validation-loss drop of 1e-4 before stopping;
         the weights of the best validation epoch are kept.
     random_state : int, RandomState or None, default=None
@@ -63,7 +63,7 @@ class ParametricSammon(ParametricEmbedding):
     ``transform`` returns coordinates in the units of the input.
 
     Parameters
-    ----------""" + _COMMON_DOC.format(epochs=300, batch_size=256, learning_rate="1e-3")
+    ----------""" + _COMMON_DOC.format(epochs=300, batch_size=128, learning_rate="3e-3", patience=30)
 
     def __init__(
         self,
@@ -72,11 +72,11 @@ class ParametricSammon(ParametricEmbedding):
         hidden: tuple[int, ...] = (128, 128),
         activation: str = "relu",
         epochs: int = 300,
-        batch_size: int = 256,
-        learning_rate: float = 1e-3,
+        batch_size: int = 128,
+        learning_rate: float = 3e-3,
         weight_decay: float = 0.0,
         validation_fraction: float = 0.1,
-        patience: int = 10,
+        patience: int = 30,
         random_state: Any = None,
     ) -> None:
         self.n_components = n_components
@@ -105,7 +105,7 @@ class ParametricMDS(ParametricEmbedding):
         ``"raw"``: raw stress divided by the sum of squared target distances of
         the minibatch; ``"kruskal"``: Kruskal's stress-1, normalised by the sum
         of squared embedded distances.""" + _COMMON_DOC.format(
-        epochs=300, batch_size=256, learning_rate="1e-3"
+        epochs=300, batch_size=128, learning_rate="3e-3", patience=30
     )
 
     def __init__(
@@ -116,11 +116,11 @@ class ParametricMDS(ParametricEmbedding):
         hidden: tuple[int, ...] = (128, 128),
         activation: str = "relu",
         epochs: int = 300,
-        batch_size: int = 256,
-        learning_rate: float = 1e-3,
+        batch_size: int = 128,
+        learning_rate: float = 3e-3,
         weight_decay: float = 0.0,
         validation_fraction: float = 0.1,
-        patience: int = 10,
+        patience: int = 30,
         random_state: Any = None,
     ) -> None:
         self.n_components = n_components
@@ -161,7 +161,7 @@ class ParametricTSNE(ParametricEmbedding):
         ``max(1, n_components - 1)`` (van der Maaten 2009): 1, the Cauchy
         kernel of ordinary t-SNE, for one or two output dimensions, and
         lighter tails as the dimension grows.""" + _COMMON_DOC.format(
-        epochs=30, batch_size=300, learning_rate="1e-2"
+        epochs=30, batch_size=300, learning_rate="1e-2", patience=10
     )
 
     _data_units = False

@@ -7,6 +7,11 @@ with distances of the data *as given*, divided by one global scale (the root
 mean squared distance between training rows): standardising each feature would
 change the geometry to be kept, and one global scale leaves it intact while
 making the result independent of the data's units.
+
+Training runs with one BLAS thread: a step multiplies matrices of a few hundred
+rows, where threads cost more in synchronisation than they save, and far more
+when other jobs share the cores (digits with parametric t-SNE: 5.6 s with one
+thread, 31.3 s with two, on a busy 2-core machine; see bench/bench_parametric.py).
 """
 
 from __future__ import annotations
@@ -17,6 +22,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted, validate_data
+from threadpoolctl import threadpool_limits
 
 from ._network import ACTIVATIONS, Architecture, OutputLoss, forward
 from ._training import Schedule, train
@@ -118,16 +124,17 @@ class ParametricEmbedding(TransformerMixin, BaseEstimator):
             float(self.weight_decay),
             int(self.patience),
         )
-        self.weights_, history = train(
-            type(self).__name__,
-            self.architecture_,
-            self.architecture_.init(init_rng),
-            (X - self.mean_) / self.std_,
-            (train_rows, val_rows),
-            lambda rows: self._batch_loss(targets[rows]),
-            schedule,
-            batch_rng,
-        )
+        with threadpool_limits(limits=1, user_api="blas"):
+            self.weights_, history = train(
+                type(self).__name__,
+                self.architecture_,
+                self.architecture_.init(init_rng),
+                (X - self.mean_) / self.std_,
+                (train_rows, val_rows),
+                lambda rows: self._batch_loss(targets[rows]),
+                schedule,
+                batch_rng,
+            )
         self.loss_curve_ = np.asarray(history.loss)
         self.validation_curve_ = np.asarray(history.validation)
         self.n_epochs_ = len(history.loss)

@@ -18,6 +18,7 @@ from ..errors import InputError
 from ..params import Param, at_least, between
 from ._classical import ClassicalScaling
 from ._registry import register_method
+from .parametric import ParametricMDS, ParametricSammon, ParametricTSNE
 from .sammon import SammonMapping
 
 
@@ -297,3 +298,131 @@ def build_tsne(
         metric="precomputed" if precomputed else "euclidean",
         random_state=seed,
     )
+
+
+# ---------------------------------------------------------------- parametric mappings (numpy networks)
+
+
+def _hidden_widths(v: Any) -> str | None:
+    try:
+        widths = parse_hidden(v)
+    except ValueError:
+        return "comma-separated positive widths such as '128,128', or 'none'"
+    return None if len(widths) <= 8 else "at most 8 hidden layers"
+
+
+def parse_hidden(text: str) -> tuple[int, ...]:
+    """``"128,64"`` -> ``(128, 64)``; ``"none"`` or ``""`` -> ``()`` (an affine map)."""
+    text = text.strip().lower()
+    if text in ("", "none"):
+        return ()
+    widths = tuple(int(part) for part in text.split(","))
+    if any(w < 1 for w in widths):
+        raise ValueError(text)
+    return widths
+
+
+def _network_params(estimator: type) -> tuple[Param, ...]:
+    """Network parameters with the estimator's own defaults (one source of truth)."""
+    d = estimator().get_params()
+    return (
+        Param(
+            "hidden",
+            str,
+            ",".join(map(str, d["hidden"])) or "none",
+            "hidden-layer widths, comma-separated; 'none' for an affine map",
+            _hidden_widths,
+        ),
+        Param(
+            "activation",
+            str,
+            d["activation"],
+            "hidden-layer activation",
+            choices=("relu", "tanh", "softplus", "identity"),
+        ),
+        Param("epochs", int, d["epochs"], "passes over the training rows at most", at_least(1)),
+        Param(
+            "batch_size",
+            int,
+            d["batch_size"],
+            "rows per minibatch (the loss covers the pairs inside one)",
+            at_least(2),
+        ),
+        Param("learning_rate", float, d["learning_rate"], "Adam step size", _positive),
+        Param("weight_decay", float, d["weight_decay"], "L2 penalty on the weight matrices", at_least(0)),
+        Param(
+            "validation_fraction",
+            float,
+            d["validation_fraction"],
+            "share of rows held out for early stopping (0: none)",
+            between(0.0, 0.9),
+        ),
+        Param(
+            "patience",
+            int,
+            d["patience"],
+            "epochs without validation improvement before stopping",
+            at_least(1),
+        ),
+    )
+
+
+def _network_kwargs(seed: int, values: dict[str, Any]) -> dict[str, Any]:
+    return {**values, "hidden": parse_hidden(values["hidden"]), "random_state": seed}
+
+
+@register_method(
+    "parametric_sammon",
+    params=_network_params(ParametricSammon),
+    description="network trained on Sammon's stress over minibatch pairs (maps new points)",
+    family="distance",
+    source="Sammon 1969; minibatch Adam (Kingma and Ba 2015) (own numpy implementation)",
+)
+def build_parametric_sammon(
+    n_components: int, seed: int, precomputed: bool, **values: Any
+) -> ParametricSammon:
+    """Parametric Sammon mapping; needs coordinates (the network reads features)."""
+    return ParametricSammon(n_components=n_components, **_network_kwargs(seed, values))
+
+
+@register_method(
+    "parametric_mds",
+    params=(
+        Param(
+            "stress",
+            str,
+            "raw",
+            "raw stress (scaled by the data's) or Kruskal's stress-1",
+            choices=("raw", "kruskal"),
+        ),
+        *_network_params(ParametricMDS),
+    ),
+    description="network trained on metric stress over minibatch pairs (maps new points)",
+    family="distance",
+    source="Kruskal 1964; minibatch Adam (Kingma and Ba 2015) (own numpy implementation)",
+)
+def build_parametric_mds(n_components: int, seed: int, precomputed: bool, **values: Any) -> ParametricMDS:
+    """Parametric metric MDS; needs coordinates."""
+    return ParametricMDS(n_components=n_components, **_network_kwargs(seed, values))
+
+
+@register_method(
+    "parametric_tsne",
+    params=(
+        Param("perplexity", float, 30.0, "effective number of neighbours within a minibatch", _positive),
+        Param(
+            "alpha",
+            (str, float),
+            "auto",
+            "Student-t degrees of freedom; 'auto' = max(1, dimensions - 1)",
+            _auto_or_positive,
+        ),
+        *_network_params(ParametricTSNE),
+    ),
+    description="network trained on the t-SNE objective within minibatches (maps new points)",
+    family="neighbour",
+    source="van der Maaten 2009; van der Maaten and Hinton 2008 (own numpy implementation)",
+)
+def build_parametric_tsne(n_components: int, seed: int, precomputed: bool, **values: Any) -> ParametricTSNE:
+    """Parametric t-SNE; needs coordinates."""
+    return ParametricTSNE(n_components=n_components, **_network_kwargs(seed, values))

@@ -375,6 +375,7 @@ def _network_kwargs(seed: int, values: dict[str, Any]) -> dict[str, Any]:
     "parametric_sammon",
     params=_network_params(ParametricSammon),
     description="network trained on Sammon's stress over minibatch pairs (maps new points)",
+    places_new_points=True,
     family="distance",
     source="Sammon 1969; minibatch Adam (Kingma and Ba 2015) (own numpy implementation)",
 )
@@ -398,6 +399,7 @@ def build_parametric_sammon(
         *_network_params(ParametricMDS),
     ),
     description="network trained on metric stress over minibatch pairs (maps new points)",
+    places_new_points=True,
     family="distance",
     source="Kruskal 1964; minibatch Adam (Kingma and Ba 2015) (own numpy implementation)",
 )
@@ -420,6 +422,7 @@ def build_parametric_mds(n_components: int, seed: int, precomputed: bool, **valu
         *_network_params(ParametricTSNE),
     ),
     description="network trained on the t-SNE objective within minibatches (maps new points)",
+    places_new_points=True,
     family="neighbour",
     source="van der Maaten 2009; van der Maaten and Hinton 2008 (own numpy implementation)",
 )

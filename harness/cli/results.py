@@ -25,9 +25,14 @@ def _report_arguments(p: argparse.ArgumentParser) -> None:
 
 def _report(args: argparse.Namespace) -> int:
     from ..report import write_report
+    from ..run import RunFolder
+    from ..run.lock import folder_lock
 
     _level(args.alpha, "--alpha")
-    print(f"Report: {write_report(args.run_dir, quality=args.quality, alpha=args.alpha)}")
+    RunFolder.open(args.run_dir)  # a one-line error for a folder that is not a run, before locking it
+    with folder_lock(args.run_dir):  # no report of a folder that a run is still writing
+        page = write_report(args.run_dir, quality=args.quality, alpha=args.alpha)
+    print(f"Report: {page}")
     return EXIT_OK
 
 

@@ -255,6 +255,26 @@ def test_sigterm_stops_like_ctrl_c_with_exit_143_and_a_resumable_folder(tmp_path
     assert "4 cells (4 ok)" in res.stdout
 
 
+@pytest.mark.slow
+def test_sigterm_before_the_first_cell_is_stored_still_leaves_a_resumable_folder(tmp_path, spawned):
+    methods = "  - use: runner_plugins:Sleeps\n    name: forever\n    params: {seconds: 100000}\n"
+    suite = suite_file(tmp_path, methods)
+    cmd = foldbench("run", str(suite), "--out", str(tmp_path / "out"), "--no-cache", "--quiet")
+    proc, family = spawned(
+        cmd, env=env_for(tmp_path), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+    )
+    assert wait_until(lambda: cell_is_running(proc)), "the cell never started"
+    grab_family(proc, family)
+    proc.send_signal(signal.SIGTERM)
+    _out, err = proc.communicate(timeout=HANG)
+    assert proc.returncode == 143, err
+    assert "Interrupted: 0 of 1 cells are stored" in err and "--resume" in err
+    assert "Traceback" not in err
+    run_dir = next((tmp_path / "out" / "life").iterdir())
+    assert (run_dir / "scores.csv").is_file() and not list((run_dir / "cells").glob("*.json"))
+    assert wait_until(lambda: not alive(family), seconds=10)  # the sleeping cell was stopped
+
+
 def test_a_stale_staging_folder_is_swept_and_a_live_one_kept(tmp_path):
     from filelock import FileLock
 

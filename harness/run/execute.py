@@ -26,7 +26,7 @@ from ..suite import Suite, load_datasets, load_suite
 from .backends import Execution, execute
 from .cache import EmbeddingCache
 from .cells import Cell, CellResult, plan
-from .folder import RunFolder
+from .folder import RunFolder, scores_frame
 from .lock import folder_lock
 from .manifest import environment
 
@@ -170,7 +170,8 @@ def execute_suite(
                 stop=stop,
             )
             _store_results(results, suite, folder, cache, counter)
-            folder.write_table("scores.csv", folder.scores)
+            # Stopped before the first cell was stored, a folder still gets its (empty) table.
+            folder.write_table("scores.csv", folder.scores if counter.done else scores_frame([]))
         if not stop.is_set():
             manifest["finished"] = _now()
             manifest["counts"] = {str(k): int(v) for k, v in folder.scores["status"].value_counts().items()}

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+from contextlib import ExitStack
 from pathlib import Path
 
 from .compare import RerunOutcome, RunSummary, compare_cells, summarise
@@ -32,6 +33,7 @@ def run_suite(
     scheduler: str | None = None,
     isolate: bool = True,
     progress: ProgressHook | None = None,
+    hold: ExitStack | None = None,
 ) -> RunSummary:
     """Fit every method on every dataset for every seed, score, rank and write the run folder.
 
@@ -59,6 +61,9 @@ def run_suite(
         Run each cell in its own child process (time limits and crash isolation).
     progress : callable, optional
         ``progress(result, done, total)`` after each stored cell.
+    hold : ExitStack, optional
+        Keep the run folder's lock in this stack after returning (for more
+        work on the folder, such as its report); by default it is released.
 
     Returns
     -------
@@ -67,7 +72,9 @@ def run_suite(
     Raises
     ------
     RunInterrupted
-        On Ctrl-C, after storing every finished cell and the tables so far.
+        On Ctrl-C or SIGTERM, after storing every finished cell and the tables so far.
+    FolderBusy
+        When another process is working on the folder to resume.
     """
     executed = execute_suite(
         suite,
@@ -81,10 +88,11 @@ def run_suite(
         scheduler=scheduler,
         isolate=isolate,
         progress=progress,
+        hold=hold,
     )
+    if executed.interrupted:  # before ranking: a run stopped before its first cell has nothing to rank
+        raise RunInterrupted(executed.folder.path, executed.done, executed.total, executed.signum)
     summary = summarise(executed.folder, executed.suite)
-    if executed.interrupted:
-        raise RunInterrupted(executed.folder.path, executed.done, executed.total)
     summary.seconds = executed.seconds
     return summary
 

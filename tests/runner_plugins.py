@@ -68,3 +68,28 @@ class Noisy(_Base):
         rng = np.random.default_rng(self.random_state)
         Y = self._first_columns(X)
         return Y + self.noise * Y.std() * rng.standard_normal(Y.shape)
+
+
+class Chatty(_Base):
+    """Prints many lines (Python and file-descriptor level) and logs many distinct warnings."""
+
+    def __init__(
+        self, n_components: int = 2, random_state: int | None = None, lines: int = 10, warnings: int = 0
+    ):
+        super().__init__(n_components, random_state)
+        self.lines = lines
+        self.warnings = warnings
+
+    def fit_transform(self, X):
+        import logging
+        import sys
+
+        for i in range(self.lines):
+            print(f"chatty line {i}")
+        sys.stdout.flush()
+        os.write(2, b"chatty wrote to file descriptor 2\n")
+        for i in range(self.warnings):
+            logging.getLogger("chatty").warning("chatty warning number %d", i)
+        for _ in range(5):
+            logging.getLogger("chatty").warning("chatty says the same thing again")
+        return self._first_columns(X)

@@ -88,6 +88,7 @@ def test_same_scores_as_the_local_backend(cluster):
         np.testing.assert_allclose(mine.embedding, ref.embedding, rtol=0, atol=1e-12)
 
 
+@pytest.mark.slow  # the crashing cell is run again alone: up to 8 worker restarts on Dask's defaults
 def test_a_cell_that_kills_its_worker_is_crashed_and_the_others_finish(cluster):
     cells, data, scoring = planned("  - use: pca\n  - use: runner_plugins:Exits\n    name: bad\n", seeds=2)
     results = by_key(on_dask(cells, data, scoring, jobs=2, scheduler=cluster.scheduler_address))
@@ -95,7 +96,7 @@ def test_a_cell_that_kills_its_worker_is_crashed_and_the_others_finish(cluster):
     for r in results.values():
         if r.cell.method == "bad":
             assert r.status == "crashed"
-            assert "worker process died" in r.error
+            assert "worker process died" in r.error and "alone" in r.error
         else:
             assert r.status == "ok"
 

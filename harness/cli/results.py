@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-from pathlib import Path
 
 from ..errors import InputError
 from ._base import EXIT_FAILED, EXIT_OK, Command, positive_int, writable_folder
@@ -26,11 +25,15 @@ def _report_arguments(p: argparse.ArgumentParser) -> None:
 
 def _report(args: argparse.Namespace) -> int:
     from ..report import write_report
+    from ..run import RunFolder
+    from ..run.lock import folder_lock
 
     _level(args.alpha, "--alpha")
-    if Path(args.run_dir).is_dir():  # a missing or foreign folder is named by the report itself
-        writable_folder(args.run_dir, "RUN_DIR", create=False)
-    print(f"Report: {write_report(args.run_dir, quality=args.quality, alpha=args.alpha)}")
+    RunFolder.open(args.run_dir)  # a one-line error for a folder that is not a run, before locking it
+    writable_folder(args.run_dir, "RUN_DIR", create=False)
+    with folder_lock(args.run_dir):  # no report of a folder that a run is still writing
+        page = write_report(args.run_dir, quality=args.quality, alpha=args.alpha)
+    print(f"Report: {page}")
     return EXIT_OK
 
 

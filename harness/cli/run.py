@@ -4,14 +4,27 @@ from __future__ import annotations
 
 import argparse
 import re
+import signal
 import sys
 from collections import Counter
+from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
 
 from ..config import BACKEND_NAMES, is_failure
 from ..errors import InputError
 from ._base import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK, Command, positive_int, writable_folders
+
+#: Exit code after SIGTERM (128 + its number), as a shell reports a process ended by it.
+EXIT_TERMINATED = 128 + signal.SIGTERM
+
+
+class _Terminated(Exception):
+    """SIGTERM arrived outside the cell loop (which handles it itself)."""
+
+
+def _raise_terminated(signum: int, frame: object) -> None:
+    raise _Terminated()
 
 
 def _arguments(run: argparse.ArgumentParser) -> None:
@@ -81,10 +94,23 @@ def _suite(args: argparse.Namespace) -> Any:
 
 
 def _handler(args: argparse.Namespace) -> int:
+    _checked(args)
+    previous = signal.signal(signal.SIGTERM, _raise_terminated)
+    try:
+        # The folder's lock is held until the report is written (the stack closes last).
+        with ExitStack() as hold:
+            return _run(args, hold)
+    except _Terminated:
+        print("foldbench: terminated", file=sys.stderr)
+        return EXIT_TERMINATED
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _run(args: argparse.Namespace, hold: ExitStack) -> int:
     from ..api import run_suite
     from ..run import RunInterrupted, default_cache_dir
 
-    _checked(args)
     suite = _suite(args)
     cache = None if args.no_cache else Path(args.cache) if args.cache else default_cache_dir()
     bar = None if args.quiet else ProgressBar()
@@ -100,6 +126,7 @@ def _handler(args: argparse.Namespace) -> int:
             backend=args.backend,
             scheduler=args.scheduler,
             progress=bar.update if bar else None,
+            hold=hold,
         )
     except RunInterrupted as stopped:
         if bar:
@@ -110,7 +137,7 @@ def _handler(args: argparse.Namespace) -> int:
             f"Resume with: foldbench run {source} --resume {stopped.run_dir}",
             file=sys.stderr,
         )
-        return EXIT_INTERRUPTED
+        return EXIT_TERMINATED if stopped.signum == signal.SIGTERM else EXIT_INTERRUPTED
     finally:
         if bar:
             bar.close()

@@ -13,7 +13,7 @@ import signal
 import threading
 import time
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, replace
 from datetime import UTC, datetime
 from pathlib import Path
@@ -27,7 +27,8 @@ from ..suite import Suite, load_datasets, load_suite
 from .backends import Execution, execute
 from .cache import EmbeddingCache
 from .cells import Cell, CellResult, plan
-from .folder import RunFolder
+from .folder import RunFolder, scores_frame
+from .lock import folder_lock
 from .manifest import environment
 
 log = logging.getLogger(__name__)
@@ -36,7 +37,7 @@ ProgressHook = Callable[[CellResult, int, int], None]
 
 
 class RunInterrupted(Exception):
-    """The run was stopped by Ctrl-C; every finished cell is stored.
+    """The run was stopped by Ctrl-C or SIGTERM; every finished cell is stored.
 
     Attributes
     ----------
@@ -44,11 +45,19 @@ class RunInterrupted(Exception):
         The run folder to resume.
     finished, total : int
         Cells stored so far, and cells in the suite.
+    signum : int
+        The signal that stopped it (``signal.SIGINT`` for Ctrl-C, ``signal.SIGTERM``).
     """
 
-    def __init__(self, run_dir: Path, finished: int, total: int) -> None:
-        self.run_dir, self.finished, self.total = run_dir, finished, total
+    def __init__(self, run_dir: Path, finished: int, total: int, signum: int = signal.SIGINT) -> None:
+        self.run_dir, self.finished, self.total, self.signum = run_dir, finished, total, int(signum)
         super().__init__(f"interrupted: {finished} of {total} cells are stored in {run_dir}")
+
+
+class _Stop(threading.Event):
+    """The stop request of a run, with the signal that made it."""
+
+    signum: int = signal.SIGINT
 
 
 @dataclass
@@ -69,6 +78,8 @@ class ExecutedRun:
         The run was stopped before every cell finished.
     seconds : float
         Wall time from start to the last stored cell.
+    signum : int
+        With ``interrupted``: the signal that stopped the run.
     """
 
     folder: RunFolder
@@ -78,6 +89,7 @@ class ExecutedRun:
     total: int
     interrupted: bool
     seconds: float
+    signum: int = signal.SIGINT
 
 
 @dataclass
@@ -107,14 +119,25 @@ def execute_suite(
     scheduler: str | None = None,
     isolate: bool = True,
     progress: ProgressHook | None = None,
+    hold: ExitStack | None = None,
 ) -> ExecutedRun:
     """Fit and score every cell of a suite that is not already done, into a run folder.
 
-    The parameters are those of :func:`harness.run_suite`; see there.
+    The parameters are those of :func:`harness.run_suite`; see there.  The run
+    folder is locked (:func:`~harness.run.lock.folder_lock`) while cells run;
+    with ``hold`` the lock is entered into that stack instead and outlives the
+    call (the command line keeps it while it writes the report).  Ctrl-C and
+    SIGTERM stop the run cleanly: running cells are stopped, finished ones and
+    the tables are stored.
 
     Returns
     -------
     ExecutedRun
+
+    Raises
+    ------
+    FolderBusy
+        When another process holds the folder to resume.
     """
     t_start = time.perf_counter()
     suite = _with_overrides(load_suite(suite) if not isinstance(suite, Suite) else suite, quadratic_limit)
@@ -125,26 +148,75 @@ def execute_suite(
     datasets = load_datasets(suite)
     cells, refused = plan(suite, datasets)
     order = cells + [r.cell for r in refused]
-    folder, manifest, done_keys = _open_folder(
-        suite, datasets, out, resume, len(order), backend_name, scheduler
+    if backend_name == "dask":
+        from .backends.dask import probe
+
+        probe(execution)  # before any folder is made: an unreachable scheduler leaves nothing behind
+    with ExitStack() as own:
+        stack = hold if hold is not None else own
+        folder, manifest, done_keys = _open_folder(
+            suite, datasets, out, resume, len(order), backend_name, scheduler, stack
+        )
+        stop = _Stop()
+        with _stop_on_signals(stop):
+            counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
+            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter)
+            results = execute(
+                todo,
+                datasets,
+                suite.scoring,
+                replace(execution, log_dir=str(folder.path / "cells")),
+                backend=backend_name,
+                cache=cache,
+                stop=stop,
+            )
+            _store_results(results, suite, folder, cache, counter)
+            # Stopped before the first cell was stored, a folder still gets its (empty) table.
+            folder.write_table("scores.csv", folder.scores if counter.done else scores_frame([]))
+        if not stop.is_set():
+            manifest["finished"] = _now()
+            manifest["counts"] = {str(k): int(v) for k, v in folder.scores["status"].value_counts().items()}
+            folder.write_manifest(manifest)
+    return ExecutedRun(
+        folder,
+        suite,
+        order,
+        counter.done,
+        counter.total,
+        stop.is_set(),
+        time.perf_counter() - t_start,
+        stop.signum,
     )
-    counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
+
+
+def _store_known(
+    suite: Suite,
+    folder: RunFolder,
+    cells: list[Cell],
+    refused: list[CellResult],
+    done_keys: set[str],
+    cache: EmbeddingCache | None,
+    counter: _Progress,
+) -> list[Cell]:
+    """Store the refused cells and those the cache has finished; return the cells left to compute."""
     for result in refused:
         if result.cell.key not in done_keys:
             folder.write_cell(result)
             counter.stored(result)
     todo = [c for c in cells if c.key not in done_keys]
-    log.info(
-        "running %d cells (%d already done) with %d jobs into %s",
-        len(todo),
-        counter.done,
-        execution.jobs,
-        folder.path,
-    )
-    todo = _from_cache(todo, suite, folder, cache, counter)
-    stop = threading.Event()
-    results = execute(todo, datasets, suite.scoring, execution, backend=backend_name, cache=cache, stop=stop)
-    with _stop_on_ctrl_c(stop):
+    log.info("running %d cells (%d already done) into %s", len(todo), counter.done, folder.path)
+    return _from_cache(todo, suite, folder, cache, counter)
+
+
+def _store_results(
+    results: Iterator[CellResult],
+    suite: Suite,
+    folder: RunFolder,
+    cache: EmbeddingCache | None,
+    counter: _Progress,
+) -> None:
+    """Store each computed cell as it arrives (interrupted ones are left to compute on resume)."""
+    try:
         for result in results:
             if result.status == CellStatus.INTERRUPTED:
                 continue
@@ -152,14 +224,11 @@ def execute_suite(
             if cache is not None and result.status == CellStatus.OK:
                 cache.put_result(result, suite.scoring)
             counter.stored(result)
-    folder.write_table("scores.csv", folder.scores)
-    if not stop.is_set():
-        manifest["finished"] = _now()
-        manifest["counts"] = {str(k): int(v) for k, v in folder.scores["status"].value_counts().items()}
-        folder.write_manifest(manifest)
-    return ExecutedRun(
-        folder, suite, order, counter.done, counter.total, stop.is_set(), time.perf_counter() - t_start
-    )
+    finally:
+        # Stops and reaps every cell process and removes staged data, whatever ended the loop.
+        close = getattr(results, "close", None)
+        if close is not None:
+            close()
 
 
 def _with_overrides(suite: Suite, quadratic_limit: int | None) -> Suite:
@@ -200,10 +269,16 @@ def _open_folder(
     cells: int,
     backend: str,
     scheduler: str | None,
+    stack: ExitStack,
 ) -> tuple[RunFolder, dict[str, Any], set[str]]:
-    """A new run folder, or the folder to resume (checked to hold a run of this suite)."""
+    """A new run folder, or the folder to resume (checked to hold a run of this suite), locked in ``stack``.
+
+    The lock is taken before anything is written, so a second process is refused untouched.
+    """
     if resume is not None:
-        folder = RunFolder.open(resume)
+        RunFolder.open(resume)  # a one-line error for a folder that is not a run, before locking it
+        stack.enter_context(folder_lock(resume))
+        folder = RunFolder.open(resume)  # read again under the lock
         manifest = dict(folder.manifest)
         if (manifest.get("suite") or {}).get("hash") != suite.digest:
             raise InputError(
@@ -216,6 +291,7 @@ def _open_folder(
         folder.write_manifest(manifest)
         return folder, manifest, folder.finished_keys()
     folder = RunFolder.create(out, suite.name)
+    stack.enter_context(folder_lock(folder.path))
     manifest = _manifest(suite, datasets, cells)
     manifest["backend"] = {"name": backend, "scheduler": scheduler}
     folder.write_suite(suite.text)
@@ -260,22 +336,29 @@ def _manifest(suite: Suite, datasets: dict[str, Dataset], cells: int) -> dict[st
 
 
 @contextmanager
-def _stop_on_ctrl_c(stop: threading.Event) -> Iterator[None]:
-    """First Ctrl-C sets ``stop`` (cells end cleanly); a second one raises as usual."""
+def _stop_on_signals(stop: _Stop) -> Iterator[None]:
+    """Ctrl-C or SIGTERM sets ``stop`` (cells end cleanly, tables are written); a second one acts as usual."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
+    previous: dict[int, Any] = {
+        int(sig): signal.getsignal(sig) or signal.SIG_DFL for sig in (signal.SIGINT, signal.SIGTERM)
+    }
 
     def handler(signum: int, frame: object) -> None:
+        if not stop.is_set():
+            stop.signum = signum
         stop.set()
-        signal.signal(signal.SIGINT, previous)
-        log.warning("stopping: finishing the bookkeeping of running cells")
+        signal.signal(signum, previous[signum])
+        log.warning("stopping (%s): finishing the bookkeeping of running cells", signal.Signals(signum).name)
 
-    previous = signal.signal(signal.SIGINT, handler)
+    for sig in previous:
+        signal.signal(sig, handler)
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, previous)
+        for sig, before in previous.items():
+            signal.signal(sig, before)
 
 
 def _now() -> str:

@@ -28,6 +28,9 @@ class Execution:
         Address of a Dask scheduler (dask backend only; none starts a local cluster).
     plugin_roots : tuple of str
         Folders plug-in methods may be imported from (the suite's).
+    log_dir : str or None
+        Folder for each cell's captured output (``<key>.log``, written by the
+        backend in the caller's process); none: the output is not kept.
     """
 
     jobs: int = 1
@@ -35,6 +38,7 @@ class Execution:
     isolate: bool = True
     scheduler: str | None = None
     plugin_roots: tuple[str, ...] = field(default=())
+    log_dir: str | None = None
 
 
 class Backend(Protocol):
@@ -54,6 +58,7 @@ class Backend(Protocol):
         ``known`` maps cell keys to earlier fits (from the cache) that need only
         scoring.  When ``stop`` is set, running cells are stopped and the rest
         are not started; they come back ``interrupted``.  Every cell ends with
-        exactly one result; nothing is written.
+        exactly one result; nothing is written but the cells' output, into
+        ``execution.log_dir``.  Closing the iterator early stops running cells.
         """
         ...

@@ -9,7 +9,14 @@ worker only scores it: workers never need to see the cache folder.
 A dataset is placed on the cluster by a task that holds it, not by scattering:
 the scheduler keeps that task's argument, so when the workers holding the data
 die (a plug-in that kills its process takes its worker with it) the data are
-rebuilt instead of lost, and only the cell that killed its workers fails.
+rebuilt instead of lost.
+
+A worker that dies takes every cell it was running with it, and Dask cannot
+tell which one killed it.  A cell whose workers kept dying is therefore only a
+suspect: once the other cells are done, each suspect runs again as the only
+cell in flight, and only one whose workers still die then is ``crashed``.  What
+a cell prints is captured on the worker (per thread) and written to its log by
+the parent.
 
 ``distributed`` is imported inside the functions, so ``import harness`` works
 without the ``dask`` extra.
@@ -17,7 +24,9 @@ without the ``dask`` extra.
 
 from __future__ import annotations
 
+import io
 import logging
+import sys
 import threading
 import traceback
 import uuid
@@ -37,6 +46,7 @@ from ...text import exception_line
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
 from ._base import Execution
+from ._capture import CappedText, WarningTally, write_log
 
 log = logging.getLogger(__name__)
 
@@ -48,6 +58,23 @@ _CONNECT_TIMEOUT = 20
 _TASK_THREADS = 1
 
 MISSING_EXTRA = "the dask backend needs the dask extra: pip install 'foldbench[dask]'"
+#: Worker deaths a task may cause on the cluster this backend starts (Dask's default is 3):
+#: a suspect is run again alone anyway, so a first death is enough to suspect it.
+_LOCAL_ALLOWED_FAILURES = 0
+
+
+def probe(execution: Execution) -> None:
+    """Check, before a run folder is made, that the cluster can be used.
+
+    Raises
+    ------
+    InputError
+        When ``distributed`` is not installed or the scheduler cannot be reached.
+    """
+    dd = _import_distributed()
+    if execution.scheduler is not None:
+        with _connect(dd, execution.scheduler):
+            pass
 
 
 class DaskBackend:
@@ -109,28 +136,20 @@ def _import_distributed() -> ModuleType:
 def _client(dd: ModuleType, scheduler: str | None, workers: int) -> Iterator[Any]:
     """A client of the given scheduler, or of a cluster started (and closed) here."""
     if scheduler is not None:
-        try:
-            client = dd.Client(scheduler, timeout=_CONNECT_TIMEOUT)
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise InputError(
-                "--scheduler",
-                f"expected the address of a running Dask scheduler "
-                f"(tcp://host:8786); could not connect to {scheduler!r} "
-                f"({type(exc).__name__}: {exc})",
-            ) from None
-        try:
+        with _connect(dd, scheduler) as client:
             yield client
-        finally:
-            client.close()
         return
+    import dask
+
     # Worker processes, one thread each: a cell is the unit of parallelism, as in the local backend.
-    cluster = dd.LocalCluster(
-        n_workers=workers,
-        threads_per_worker=1,
-        processes=True,
-        dashboard_address=":0",
-        silence_logs=logging.ERROR,
-    )
+    with dask.config.set({"distributed.scheduler.allowed-failures": _LOCAL_ALLOWED_FAILURES}):
+        cluster = dd.LocalCluster(
+            n_workers=workers,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=":0",
+            silence_logs=logging.ERROR,
+        )
     try:
         client = dd.Client(cluster)
         log.info("started a local Dask cluster of %d workers (dashboard: %s)", workers, client.dashboard_link)
@@ -140,6 +159,24 @@ def _client(dd: ModuleType, scheduler: str | None, workers: int) -> Iterator[Any
             client.close()
     finally:
         cluster.close()
+
+
+@contextmanager
+def _connect(dd: ModuleType, scheduler: str) -> Iterator[Any]:
+    """A client of the scheduler at this address, or a one-line error."""
+    try:
+        client = dd.Client(scheduler, timeout=_CONNECT_TIMEOUT)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(
+            "--scheduler",
+            f"expected the address of a running Dask scheduler "
+            f"(tcp://host:8786); could not connect to {scheduler!r} "
+            f"({type(exc).__name__}: {exc})",
+        ) from None
+    try:
+        yield client
+    finally:
+        client.close()
 
 
 def _run(
@@ -158,9 +195,10 @@ def _run(
         for name in dict.fromkeys(c.dataset for c in cells)
     }
     waiting = list(reversed(cells))
-    pending: dict[Any, Cell] = {}
+    suspects: list[Cell] = []  # cells whose workers died while other cells ran beside them
+    pending: dict[Any, tuple[Cell, bool]] = {}  # future -> (cell, running alone)
 
-    def submit(cell: Cell) -> None:
+    def submit(cell: Cell, alone: bool) -> None:
         future = client.submit(
             _task,
             cell,
@@ -169,35 +207,42 @@ def _run(
             known.get(cell.key),
             execution.time_limit,
             execution.plugin_roots,
-            key=f"foldbench-cell-{cell.method}-{cell.key}-{token}",
+            key=f"foldbench-cell-{cell.method}-{cell.key}-{token}{'-alone' if alone else ''}",
             pure=False,
+            retries=0,
         )
-        pending[future] = cell
+        pending[future] = (cell, alone)
 
     log.info("sending %d cells to the Dask scheduler %s", len(cells), client.scheduler.address)
     try:
-        while pending or waiting:
+        while pending or waiting or suspects:
             if stop.is_set():
                 client.cancel(list(pending))
-                for cell in [*pending.values(), *reversed(waiting)]:
+                for cell in [*(c for c, _ in pending.values()), *reversed(waiting), *suspects]:
                     yield CellResult(cell, CellStatus.INTERRUPTED, "stopped: the run was interrupted")
                 pending.clear()
                 waiting.clear()
+                suspects.clear()
                 return
-            # No more cells in flight than worker threads: when a worker dies, Dask counts the
-            # death against every cell assigned to it, so a queue behind a crashing cell would
-            # make innocent cells fail too.  Counted anew each time, so workers may come and go.
+            # No more cells in flight than worker threads, counted anew each time (workers come
+            # and go); suspects run one at a time with nothing beside them, after the rest.
             capacity = max(1, sum(client.nthreads().values()))
             while waiting and len(pending) < capacity:
-                submit(waiting.pop())
+                submit(waiting.pop(), alone=False)
+            if not waiting and not pending and suspects:
+                submit(suspects.pop(0), alone=True)
             try:
                 finished, _ = dd.wait(list(pending), timeout=_POLL, return_when="FIRST_COMPLETED")
             except TimeoutError:
                 continue
             for future in finished:
-                cell = pending.pop(future)
-                result = _collect(dd, future, cell)
+                cell, alone = pending.pop(future)
+                result = _collect(dd, future, cell, alone, execution.log_dir)
                 future.release()  # the embedding need not stay in a worker's memory
+                if result is None:
+                    log.info("cell %s lost its worker beside other cells; it runs again alone", cell.key)
+                    suspects.append(cell)
+                    continue
                 yield result
     finally:
         # Reached early when the consumer stops iterating; leaves nothing running on a shared cluster.
@@ -206,16 +251,24 @@ def _run(
         client.cancel(list(held.values()))
 
 
-def _collect(dd: ModuleType, future: Any, cell: Cell) -> CellResult:
-    """The cell's result, or a result saying why the cluster could not produce one."""
+def _collect(
+    dd: ModuleType, future: Any, cell: Cell, alone: bool, log_dir: str | None = None
+) -> CellResult | None:
+    """The cell's result, or a result saying why the cluster could not produce one.
+
+    None when the cell's workers died while it ran beside others: it is then
+    only a suspect, to be run again alone.
+    """
     try:
-        return future.result()
+        result, output = future.result()
     except dd.KilledWorker as exc:
+        if not alone:
+            return None
         return CellResult(
             cell,
             CellStatus.CRASHED,
             f"the worker process died each of the {exc.allowed_failures + 1} times it ran "
-            "this cell (a crash such as os._exit or a segmentation fault, or an "
+            "this cell alone (a crash such as os._exit or a segmentation fault, or an "
             "out-of-memory kill)",
         )
     except CancelledError as exc:
@@ -229,6 +282,8 @@ def _collect(dd: ModuleType, future: Any, cell: Cell) -> CellResult:
             exception_line(exc, 500),
             detail="".join(traceback.format_exception(exc, limit=8)),
         )
+    write_log(log_dir, cell.key, output)
+    return result
 
 
 # ---------------------------------------------------------------- on the worker
@@ -239,17 +294,32 @@ def _hold(dataset: Dataset) -> Dataset:
     return dataset
 
 
-class _ThreadWarnings(logging.Handler):
-    """Keeps the warnings one thread logs, to hand them back with its cell's result."""
+class _PerThread(io.TextIOBase):
+    """``sys.stdout`` or ``sys.stderr`` of a worker: a cell thread's writes go to that cell's sink."""
 
-    def __init__(self, thread_name: str) -> None:
-        super().__init__(logging.WARNING)
-        self.thread_name = thread_name
-        self.lines: list[str] = []
+    def __init__(self, real: Any) -> None:
+        self.real = real
+        self.sinks: dict[int, CappedText] = {}
 
-    def emit(self, record: logging.LogRecord) -> None:
-        if record.threadName == self.thread_name:
-            self.lines.append(" ".join(record.getMessage().split())[:300])
+    def write(self, text: str) -> int:
+        sink = self.sinks.get(threading.get_ident())
+        return sink.write(text) if sink is not None else self.real.write(text)
+
+    def flush(self) -> None:
+        self.real.flush()
+
+
+_STREAMS_LOCK = threading.Lock()
+
+
+def _streams() -> tuple[_PerThread, _PerThread]:
+    """The worker's per-thread ``sys.stdout`` and ``sys.stderr`` (installed once per process)."""
+    with _STREAMS_LOCK:
+        if not isinstance(sys.stdout, _PerThread):
+            sys.stdout = _PerThread(sys.stdout)
+        if not isinstance(sys.stderr, _PerThread):
+            sys.stderr = _PerThread(sys.stderr)
+        return sys.stdout, sys.stderr
 
 
 def _task(
@@ -259,39 +329,49 @@ def _task(
     known: KnownFit | None,
     time_limit: float | None,
     roots: tuple[str, ...],
-) -> CellResult:
-    """Compute one cell on a worker, within its time limit.
+) -> tuple[CellResult, bytes]:
+    """Compute one cell on a worker, within its time limit; returns its result and its output.
 
     Workers on the parent's filesystem find plug-ins in the suite's folders;
-    elsewhere those folders do not exist and change nothing.
+    elsewhere those folders do not exist and change nothing.  What the cell
+    prints from its own thread (Python level; C code writing to the file
+    descriptors is not caught here) comes back capped at 1 MB.
     """
     box: dict[str, Any] = {}
+    sink = CappedText()
+    out, err = _streams()
 
     def work() -> None:
+        me = threading.get_ident()
+        out.sinks[me] = err.sinks[me] = sink
         try:
             with threadpool_limits(limits=_TASK_THREADS), thread_budget(_TASK_THREADS):
                 box["result"] = compute_cell(cell, dataset, scoring, known, roots)
         except BaseException as exc:  # handed to the task's thread, which raises it to Dask
             box["error"] = exc
+        finally:
+            out.sinks.pop(me, None)
+            err.sinks.pop(me, None)
 
     # A thread of its own so that the time limit can be kept while the fit runs.
     name = f"foldbench-cell-{cell.key}-{uuid.uuid4().hex[:6]}"
     worker = threading.Thread(target=work, name=name, daemon=True)
-    collect = _ThreadWarnings(name)
+    tally = WarningTally(name)
     root = logging.getLogger()
-    root.addHandler(collect)
+    root.addHandler(tally)
     try:
         worker.start()
         worker.join(time_limit)
     finally:
-        root.removeHandler(collect)
+        root.removeHandler(tally)
     if worker.is_alive():
         log.warning(
             "cell %s overran its time limit; its fit goes on in the background until it ends", cell.key
         )
-        return CellResult(cell, CellStatus.TIMEOUT, f"no result within the time limit of {time_limit:g} s")
+        timeout = CellResult(cell, CellStatus.TIMEOUT, f"no result within the time limit of {time_limit:g} s")
+        return timeout, sink.getvalue()
     if "error" in box:
         raise box["error"]
     result = box["result"]
-    result.warnings = tuple(dict.fromkeys(collect.lines))
-    return result
+    result.warnings = tally.lines()
+    return result, sink.getvalue()

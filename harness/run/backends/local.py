@@ -5,7 +5,11 @@ A cell that overruns its time limit is stopped, a child that dies
 as crashed, and the run goes on.  Children come from a fork server that has
 imported the package once, so a cell starts in milliseconds, and datasets
 reach them as memory-mapped ``.npy`` files staged once per run in a temporary
-folder (the only files this backend writes; they are removed at the end).
+folder (removed at the end; one left by a process that was killed is removed
+by the next run).  What a cell prints goes, through a pipe, to its log
+(``execution.log_dir/<key>.log``, at most 1 MB), never to foldbench's own
+output.  Children, their process groups and the fork server end with the
+process that started them (:mod:`._orphans`).
 """
 
 from __future__ import annotations
@@ -29,6 +33,7 @@ from multiprocessing.connection import Connection
 from pathlib import Path
 
 import numpy as np
+from filelock import FileLock, Timeout
 from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
@@ -37,7 +42,9 @@ from ...datasets import Dataset
 from ...methods import thread_budget
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
+from . import _orphans
 from ._base import Execution
+from ._capture import CappedText, WarningTally, write_log
 
 log = logging.getLogger(__name__)
 
@@ -45,6 +52,52 @@ log = logging.getLogger(__name__)
 _POLL = 0.25
 #: First message of a child: it is running (the time limit starts now).
 _STARTED = "started"
+#: Staging folders are ``<temp>/foldbench-data-<pid>-<random>``, each with a lock its process holds.
+_STAGE_PREFIX = "foldbench-data-"
+_STAGE_LOCK = ".owner.lock"
+#: Seconds to wait for the rest of a finished cell's output.
+_OUTPUT_GRACE = 5.0
+
+
+# ---------------------------------------------------------------- staging folders
+
+
+@contextmanager
+def staging_folder() -> Iterator[Path]:
+    """A temporary folder for staged datasets, locked while this process uses it, removed after."""
+    folder = Path(tempfile.mkdtemp(prefix=f"{_STAGE_PREFIX}{os.getpid()}-"))
+    lock = FileLock(folder / _STAGE_LOCK, timeout=0)
+    try:
+        lock.acquire(blocking=False)
+        yield folder
+    finally:
+        lock.release()
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+def sweep_staging(root: str | Path | None = None) -> int:
+    """Remove staging folders left by processes that are gone; returns how many.
+
+    A folder counts as left behind when its lock can be taken: the operating
+    system releases a lock when its process ends, however it ends.  Folders
+    without a lock (being made, or of an older version) are left alone.
+    """
+    removed = 0
+    for folder in Path(root or tempfile.gettempdir()).glob(f"{_STAGE_PREFIX}*"):
+        lock_file = folder / _STAGE_LOCK
+        if not lock_file.is_file():
+            continue
+        lock = FileLock(lock_file, timeout=0)
+        try:
+            lock.acquire(blocking=False)
+        except (Timeout, OSError):
+            continue  # in use by a live run (or not ours to touch)
+        lock.release()
+        shutil.rmtree(folder, ignore_errors=True)
+        removed += 1
+    if removed:
+        log.info("removed %d staging folders left by runs that were killed", removed)
+    return removed
 
 
 # ---------------------------------------------------------------- datasets for children
@@ -70,17 +123,6 @@ def _unstage(where: Path) -> Dataset:
     return replace(meta, distances=array) if precomputed else replace(meta, X=array)
 
 
-class _Collect(logging.Handler):
-    """Keeps the warnings a child logs, to hand them back with its result."""
-
-    def __init__(self) -> None:
-        super().__init__(logging.WARNING)
-        self.lines: list[str] = []
-
-    def emit(self, record: logging.LogRecord) -> None:
-        self.lines.append(" ".join(record.getMessage().split())[:300])
-
-
 def _child(
     cell: Cell,
     where: Path,
@@ -89,17 +131,30 @@ def _child(
     known: KnownFit | None,
     roots: tuple[str, ...],
     conn: Connection,
+    alive: Connection,
+    output: Connection | None,
 ) -> None:
-    # The parent handles Ctrl-C; a child only stops when told to.
+    # The parent handles Ctrl-C; a child only stops when told to, or when the parent is gone.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _orphans.die_with_parent()
+    _orphans.lead_own_group()
+    _orphans.end_with(alive)
+    if output is not None:  # the cell's stdout and stderr, down to the file descriptors, go to its log
+        os.dup2(output.fileno(), 1)
+        os.dup2(output.fileno(), 2)
+        output.close()
     conn.send(_STARTED)
-    collect = _Collect()
+    tally = WarningTally()
+    shown = logging.StreamHandler(sys.stderr)  # every warning in full in the log, a tally in the record
+    shown.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
     root = logging.getLogger()
-    root.handlers[:] = [collect]
+    root.handlers[:] = [tally, shown]
     root.setLevel(logging.WARNING)
     with threadpool_limits(limits=threads), thread_budget(threads):
         result = compute_cell(cell, _unstage(where), scoring, known, roots)
-    result.warnings = tuple(dict.fromkeys(collect.lines))
+    result.warnings = tally.lines()
+    sys.stdout.flush()
+    sys.stderr.flush()
     conn.send(result)
     conn.close()
 
@@ -111,8 +166,18 @@ def _context() -> mp.context.ForkServerContext | mp.context.SpawnContext:
     if method == "spawn":
         return mp.get_context("spawn")
     ctx = mp.get_context("forkserver")
-    ctx.set_forkserver_preload(["harness.run.backends.local"])
+    ctx.set_forkserver_preload(["harness.run.backends._forkserver"])
     return ctx
+
+
+def _start_fork_server() -> None:
+    """Start the fork server from the calling thread (it is told to end when that thread does)."""
+    if _context().get_start_method() != "forkserver":
+        return
+    from multiprocessing import forkserver
+
+    with _main_module_hidden():
+        forkserver.ensure_running()
 
 
 _START_LOCK = threading.Lock()
@@ -145,44 +210,88 @@ def _supervise(
     execution: Execution,
     known: KnownFit | None,
     stop: threading.Event,
+    halt: threading.Event,
 ) -> CellResult:
-    if stop.is_set():
+    if stop.is_set() or halt.is_set():
         return CellResult(cell, CellStatus.INTERRUPTED, "not started: the run was interrupted")
-    time_limit = execution.time_limit
     ctx = _context()
     receive, send = ctx.Pipe(duplex=False)
+    alive_end, alive = ctx.Pipe(duplex=False)  # the child watches alive_end; only this process holds alive
+    output_end, output = ctx.Pipe(duplex=False) if execution.log_dir else (None, None)
     proc = ctx.Process(
-        target=_child, args=(cell, where, scoring, threads, known, execution.plugin_roots, send), daemon=True
+        target=_child,
+        args=(cell, where, scoring, threads, known, execution.plugin_roots, send, alive_end, output),
+        daemon=True,
     )
     with _main_module_hidden():
         proc.start()
-    send.close()
-    t0 = None  # the clock starts when the child is running, not while the fork server warms up
+    for end in (send, alive_end, output):
+        if end is not None:
+            end.close()
+    sink = CappedText()
+    pump = _pump(output_end, sink) if output_end is not None else None
     try:
-        while True:
-            waited = 0.0 if t0 is None else time.perf_counter() - t0
-            if time_limit is not None and waited >= time_limit:
-                return CellResult(
-                    cell, CellStatus.TIMEOUT, f"stopped after the time limit of {time_limit:g} s"
-                )
-            if stop.is_set():
-                return CellResult(cell, CellStatus.INTERRUPTED, "stopped: the run was interrupted")
-            step = _POLL if time_limit is None or t0 is None else min(_POLL, time_limit - waited)
-            if receive.poll(step):
-                try:
-                    message = receive.recv()
-                except (EOFError, OSError):
-                    proc.join(5)
-                    return CellResult(cell, CellStatus.CRASHED, _death(proc.exitcode))
-                if isinstance(message, str) and message == _STARTED:
-                    t0 = time.perf_counter()
-                    continue
-                return message
+        return _await(cell, proc, receive, execution.time_limit, stop, halt)
     finally:
         receive.close()
+        _orphans.kill_group(proc.pid)  # the cell and anything it started
         if proc.is_alive():
             proc.kill()
         proc.join(5)
+        alive.close()
+        if pump is not None and output_end is not None:
+            pump.join(_OUTPUT_GRACE)
+            write_log(execution.log_dir, cell.key, sink.getvalue())
+            if not pump.is_alive():
+                output_end.close()
+
+
+def _await(
+    cell: Cell,
+    proc: mp.process.BaseProcess,
+    receive: Connection,
+    time_limit: float | None,
+    stop: threading.Event,
+    halt: threading.Event,
+) -> CellResult:
+    """The child's result, or why there is none (time limit, stop request, death)."""
+    t0 = None  # the clock starts when the child is running, not while the fork server warms up
+    while True:
+        waited = 0.0 if t0 is None else time.perf_counter() - t0
+        if time_limit is not None and waited >= time_limit:
+            return CellResult(cell, CellStatus.TIMEOUT, f"stopped after the time limit of {time_limit:g} s")
+        if stop.is_set() or halt.is_set():
+            return CellResult(cell, CellStatus.INTERRUPTED, "stopped: the run was interrupted")
+        step = _POLL if time_limit is None or t0 is None else min(_POLL, time_limit - waited)
+        if receive.poll(step):
+            try:
+                message = receive.recv()
+            except (EOFError, OSError):
+                proc.join(5)
+                return CellResult(cell, CellStatus.CRASHED, _death(proc.exitcode))
+            if isinstance(message, str) and message == _STARTED:
+                t0 = time.perf_counter()
+                continue
+            return message
+
+
+def _pump(source: Connection, sink: CappedText) -> threading.Thread:
+    """Copy what a child writes to ``source`` into ``sink`` until end-of-file, on a thread."""
+
+    def copy() -> None:
+        fd = source.fileno()
+        while True:
+            try:
+                chunk = os.read(fd, 1 << 16)
+            except OSError:
+                return
+            if not chunk:
+                return
+            sink.add(chunk)
+
+    thread = threading.Thread(target=copy, name="foldbench-cell-output", daemon=True)
+    thread.start()
+    return thread
 
 
 def _death(code: int | None) -> str:
@@ -222,17 +331,36 @@ class LocalBackend:
                     cell, datasets[cell.dataset], scoring, known.get(cell.key), execution.plugin_roots
                 )
             return
+        yield from self._isolated(cells, datasets, scoring, execution, known, stop)
+
+    def _isolated(
+        self,
+        cells: list[Cell],
+        datasets: dict[str, Dataset],
+        scoring: Scoring,
+        execution: Execution,
+        known: dict[str, KnownFit],
+        stop: threading.Event,
+    ) -> Iterator[CellResult]:
         jobs = max(1, min(execution.jobs, len(cells)))
         threads = max(1, (os.cpu_count() or 1) // jobs)
-        folder = Path(tempfile.mkdtemp(prefix="foldbench-data-"))
-        try:
+        sweep_staging()
+        _start_fork_server()
+        halt = threading.Event()  # set when the consumer stops early: running cells end at once
+        with staging_folder() as folder:
             places = stage_datasets({c.dataset: datasets[c.dataset] for c in cells}, folder)
             tasks = (
-                delayed(_supervise)(c, places[c.dataset], scoring, threads, execution, known.get(c.key), stop)
+                delayed(_supervise)(
+                    c, places[c.dataset], scoring, threads, execution, known.get(c.key), stop, halt
+                )
                 for c in cells
             )
-            yield from Parallel(
+            results = Parallel(
                 n_jobs=jobs, backend="threading", return_as="generator_unordered", pre_dispatch="n_jobs"
             )(tasks)
-        finally:
-            shutil.rmtree(folder, ignore_errors=True)
+            try:
+                for result in results:  # noqa: UP028 (``yield from`` would close results before halt is set)
+                    yield result
+            finally:
+                halt.set()
+                results.close()

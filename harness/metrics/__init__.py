@@ -25,6 +25,7 @@ from ._global import JACKKNIFE_GROUPS, global_measures
 from ._labels import knn_accuracy, silhouette
 from ._local import PER_K, collect, curve_table, mean_interval
 from ._memory import block_rows, default_memory_bytes
+from ._neighbours import knn_overlap
 from ._ranks import rank_blocks
 from ._rnx_area import rnx_area
 from ._standard import standard_distances, standard_points
@@ -36,6 +37,7 @@ __all__ = [
     "coranking_curve",
     "evaluate",
     "higher_is_better",
+    "knn_overlap",
     "measure_stem",
     "score",
 ]

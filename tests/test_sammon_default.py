@@ -38,3 +38,15 @@ def test_default_iterations_reach_within_a_tenth_of_a_percent_of_converged_stres
     converged = sammon_stress(X, SammonMapping(max_iter=5000, tol=0.0).fit_transform(X))
     assert converged <= default
     assert (default - converged) / converged <= 1e-3, (name, default, converged)
+
+
+def test_sammon_fit_does_not_depend_on_the_magnitude_of_the_input():
+    # Sammon's stress (Sammon 1969) is unchanged by a uniform scaling of the data;
+    # scaling by a power of two is exact, so the fit must be the same, scaled.
+    X = np.random.default_rng(0).normal(size=(60, 4))
+    base = SammonMapping(max_iter=30).fit(X)
+    for exponent in (-600, 600):
+        scaled = SammonMapping(max_iter=30).fit(np.ldexp(X, exponent))
+        np.testing.assert_array_equal(scaled.embedding_, np.ldexp(base.embedding_, exponent))
+    tiny = SammonMapping(max_iter=30).fit(X * 1e-160)  # squared distances would underflow
+    assert tiny.stress_ == pytest.approx(base.stress_, rel=1e-9)

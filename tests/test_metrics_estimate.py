@@ -38,7 +38,7 @@ def test_sampled_intervals_cover_exact_value(data):
     # the exact value in about 95 of 100 seeded trials; require at least 90.
     x, y = data
     exact = score(x, y, ks=[10], pair_sample_above=0, n_pairs=100).values
-    names = ("trustworthiness@10", "continuity@10", "knn_recall@10", "mrre_data@10", "rnx_auc")
+    names = ("trustworthiness@10", "continuity@10", "knn_recall@10", "mrre_data@10", "rnx_auc@10", "rnx_auc")
     covered = dict.fromkeys(names, 0)
     for seed in range(100):
         res = score(

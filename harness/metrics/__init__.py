@@ -2,10 +2,13 @@
 
 Public API: :func:`score` (everything, with estimates and intervals where
 asked), :func:`evaluate` (one k, plain floats), :func:`coranking_curve`, the
-:class:`MeasureResult` it returns and the catalogue :data:`MEASURES`.
+:class:`MeasureResult` it returns, the catalogue :data:`MEASURES` and
+:func:`knn_overlap` (neighbourhood agreement of two embeddings).
 
 Distances are Euclidean in both spaces, or read from a square matrix for the
-data when ``metric="precomputed"``.
+data when ``metric="precomputed"``.  Both spaces are standardised first (median
+centre, power-of-two scale; see :mod:`._standard`), so no value depends on the
+offset or magnitude of the input; ties in distance are broken by point index.
 """
 
 from __future__ import annotations

@@ -41,17 +41,22 @@ def reference(x: np.ndarray, y: np.ndarray, k: int, dist_x: np.ndarray | None = 
     rnx = ((n - 1) * q - big_k) / (n - 1 - big_k)
     # Chen & Buja 2009: LCMC(K) = Q_NX(K) - K / (n - 1).
     out["lcmc"] = q[-1] - k / (n - 1)
-    # Lee, Peluffo-Ordonez & Verleysen 2015: area with weights 1/K.
+    # Lee, Peluffo-Ordonez & Verleysen 2015: area with weights 1/K, here truncated at K = k.
     out["rnx_auc"] = np.sum(rnx / big_k) / np.sum(1 / big_k)
     out["Q_NX"], out["R_NX"] = q, rnx
+    # The same paper's area over the whole range K = 1..n-2.
+    q_all = np.array([overlap(kk) / kk for kk in range(1, n - 1)])
+    k_all = np.arange(1, n - 1)
+    rnx_all = ((n - 1) * q_all - k_all) / (n - 1 - k_all)
+    out["rnx_auc_full"] = np.sum(rnx_all / k_all) / np.sum(1 / k_all)
     return out
 
 
-LOCAL = ("trustworthiness", "continuity", "knn_recall", "mrre_data", "mrre_embedding", "lcmc")
+LOCAL = ("trustworthiness", "continuity", "knn_recall", "mrre_data", "mrre_embedding", "lcmc", "rnx_auc")
 
 
 def _local_values(result, k: int) -> dict:
-    return {name: result.values[f"{name}@{k}"] for name in LOCAL} | {"rnx_auc": result.values["rnx_auc"]}
+    return {name: result.values[f"{name}@{k}"] for name in LOCAL} | {"rnx_auc_full": result.values["rnx_auc"]}
 
 
 @pytest.fixture
@@ -217,6 +222,7 @@ def test_evaluate_keys_are_plain(rng):
         "mrre_embedding",
         "lcmc",
         "rnx_auc",
+        "rnx_auc@10",
         "knn_accuracy",
         "silhouette",
     }

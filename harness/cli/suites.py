@@ -70,7 +70,7 @@ def _list(args: argparse.Namespace) -> int:
     if args.what == "measures":
         for m in MEASURES.values():
             direction = "higher is better" if m.higher_is_better else "lower is better"
-            k = ", at each k" if m.per_k else ""
+            k = ", at each k" if m.per_k else (f", and {m.name}@k at each k" if m.at_k_too else "")
             needs = f", needs {m.needs}" if m.needs else ""
             print(f"{m.name}  [{m.scope}; {direction}{k}{needs}]\n    {m.definition}\n    source: {m.source}")
         return EXIT_OK

@@ -33,9 +33,9 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats as _sps
 from scipy.spatial import procrustes
-from sklearn.neighbors import NearestNeighbors
 
 from ..errors import InputError
+from ..metrics import knn_overlap as neighbour_overlap
 
 #: Resamples of the percentile bootstrap; enough for stable 2.5% / 97.5% quantiles.
 BOOTSTRAP_RESAMPLES = 4000
@@ -155,6 +155,9 @@ def seed_statistics(scores: pd.DataFrame, measures: Sequence[str], *, level: flo
 def knn_overlap(a: np.ndarray, b: np.ndarray, k: int, *, queries: np.ndarray | None = None) -> float:
     """Mean share of the k nearest neighbours two embeddings of the same points agree on.
 
+    Neighbours follow the measures' rule: ties in distance broken by index, the
+    point itself never its own neighbour (:func:`harness.metrics.knn_overlap`).
+
     Parameters
     ----------
     a, b : ndarray of shape (n, d)
@@ -174,23 +177,7 @@ def knn_overlap(a: np.ndarray, b: np.ndarray, k: int, *, queries: np.ndarray | N
         raise InputError("embeddings", f"expected the same number of rows, got {n} and {b.shape[0]}")
     if not 1 <= k < n:
         raise InputError("k", f"expected 1 <= k < n = {n}, got {k}")
-    idx = np.arange(n) if queries is None else np.asarray(queries)
-    sets = []
-    for emb in (a, b):
-        nn = NearestNeighbors(n_neighbors=k + 1).fit(emb)
-        neigh = nn.kneighbors(emb[idx], return_distance=False)
-        sets.append(_drop_self(neigh, idx, k))
-    shared = [np.intersect1d(x, y, assume_unique=True).size for x, y in zip(*sets)]
-    return float(np.mean(shared) / k)
-
-
-def _drop_self(neigh: np.ndarray, idx: np.ndarray, k: int) -> list[np.ndarray]:
-    # Duplicated points can push a point out of its own first slot, so remove it by index.
-    out = []
-    for row, i in zip(neigh, idx):
-        row = row[row != i]
-        out.append(row[:k])
-    return out
+    return neighbour_overlap(a, b, k, queries)
 
 
 @dataclass(frozen=True)

@@ -125,7 +125,9 @@ def check_embedding(raw: Any, n: int, n_components: int, method: str = "", datas
     if bad:
         raise fail(f"{bad} of {Y.size} values are NaN or infinite")
     spread = np.ptp(Y, axis=0)
-    if n > 1 and np.all(spread <= 1e-12 * max(1.0, float(np.abs(Y).max()))):
+    # Relative to the coordinates' own magnitude, so that no scale is too small
+    # or too large: a spread below 1e-12 of it is rounding noise of one point.
+    if n > 1 and np.all(spread <= 1e-12 * float(np.abs(Y).max())):
         raise fail("all points coincide (zero spread)")
     flat = np.flatnonzero(spread == 0)
     if n > 1 and flat.size:

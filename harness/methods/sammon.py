@@ -100,7 +100,7 @@ class SammonMapping(BaseEstimator):
         self
         """
         self._check_params()
-        X = np.asarray(X, dtype=np.float64)
+        X, exponent = _power_of_two_standard(np.asarray(X, dtype=np.float64), self.metric == "precomputed")
         D = self._distances(X)
         rng = check_random_state(self.random_state)
 
@@ -119,7 +119,7 @@ class SammonMapping(BaseEstimator):
             Y = rng.standard_normal((D.shape[0], self.n_components))
 
         Y, stress, history = _minimise(D, Y, self.max_iter, self.tol, rng)
-        self.embedding_ = Y * scale
+        self.embedding_ = np.ldexp(Y * scale, exponent)
         self.stress_ = float(stress)
         self.n_iter_ = len(history) - 1
         self._stress_history = np.asarray(history)
@@ -155,6 +155,22 @@ class SammonMapping(BaseEstimator):
                 "a precomputed distance matrix must be symmetric, non-negative, with a zero diagonal"
             )
         return (X + X.T) / 2
+
+
+def _power_of_two_standard(X: np.ndarray, precomputed: bool) -> tuple[np.ndarray, int]:
+    """``X`` (centred unless a distance matrix) times ``2**-e`` with its largest entry in [0.5, 1), and ``e``.
+
+    Powers of two scale exactly, so the fit is the same at any magnitude of the
+    input, where squared distances of coordinates near 1e160 (or 1e-160) would
+    overflow (underflow); the embedding is scaled back by ``2**e``.
+    """
+    if X.ndim != 2 or X.shape[0] < 2 or not np.all(np.isfinite(X)):
+        return X, 0  # refused with a message by _distances
+    if not precomputed:
+        X = X - np.median(X, axis=0)
+    top = float(np.max(np.abs(X)))
+    exponent = int(np.frexp(top)[1]) if top > 0 else 0
+    return np.ldexp(X, -exponent), exponent
 
 
 class _SammonObjective:

@@ -2,10 +2,13 @@
 
 Public API: :func:`score` (everything, with estimates and intervals where
 asked), :func:`evaluate` (one k, plain floats), :func:`coranking_curve`, the
-:class:`MeasureResult` it returns and the catalogue :data:`MEASURES`.
+:class:`MeasureResult` it returns, the catalogue :data:`MEASURES` and
+:func:`knn_overlap` (neighbourhood agreement of two embeddings).
 
 Distances are Euclidean in both spaces, or read from a square matrix for the
-data when ``metric="precomputed"``.
+data when ``metric="precomputed"``.  Both spaces are standardised first (median
+centre, power-of-two scale; see :mod:`._standard`), so no value depends on the
+offset or magnitude of the input; ties in distance are broken by point index.
 """
 
 from __future__ import annotations
@@ -26,7 +29,10 @@ from ._intervals import local_estimates
 from ._labels import knn_accuracy, silhouette
 from ._local import PER_K, collect, curve_table
 from ._memory import block_rows, default_memory_bytes
+from ._neighbours import knn_overlap
 from ._ranks import rank_blocks
+from ._rnx_area import rnx_area
+from ._standard import standard_distances, standard_points
 
 __all__ = [
     "MEASURES",
@@ -35,6 +41,7 @@ __all__ = [
     "coranking_curve",
     "evaluate",
     "higher_is_better",
+    "knn_overlap",
     "measure_stem",
     "score",
 ]
@@ -87,6 +94,7 @@ def _matrix(a: object, where: str) -> np.ndarray:
 
 
 def _inputs(X: object, Y: object, metric: str) -> tuple[np.ndarray | None, np.ndarray | None, np.ndarray]:
+    """Checked inputs, standardised (see :mod:`._standard`): data points or distance matrix, embedding."""
     if metric not in _METRICS:
         raise InputError("metric", f"one of {', '.join(_METRICS)}, got {metric!r}")
     x = _matrix(X, "X")
@@ -101,8 +109,8 @@ def _inputs(X: object, Y: object, metric: str) -> tuple[np.ndarray | None, np.nd
             raise InputError("X", "non-negative distances")
         if not np.allclose(x, x.T, rtol=1e-12, atol=0.0):
             raise InputError("X", "a symmetric distance matrix")
-        return None, x, y
-    return x, None, y
+        return None, standard_distances(x), standard_points(y)
+    return standard_points(x), None, standard_points(y)
 
 
 def _ks(ks: Iterable[Any], n: int) -> list[int]:
@@ -135,18 +143,22 @@ def _vector_labels(labels: object, n: int) -> np.ndarray:
     return arr
 
 
+def _rows(
+    x_points: np.ndarray | None, x_matrix: np.ndarray | None, y: np.ndarray
+) -> tuple[DistanceRows, DistanceRows]:
+    data = DistanceRows(points=x_points) if x_matrix is None else DistanceRows(matrix=x_matrix)
+    return data, DistanceRows(points=y)
+
+
 def _local(
-    x_points: np.ndarray | None,
-    x_matrix: np.ndarray | None,
-    y: np.ndarray,
+    data: DistanceRows,
+    emb: DistanceRows,
     ks: Sequence[int],
     k_curve: int,
     queries: np.ndarray,
     memory_bytes: int,
 ):
-    n = y.shape[0]
-    data = DistanceRows(points=x_points) if x_matrix is None else DistanceRows(matrix=x_matrix)
-    emb = DistanceRows(points=y)
+    n = data.n
     fixed = data.nbytes + emb.nbytes + len(queries) * (len(PER_K) * len(ks) + 1) * 8
     rows = block_rows(n, len(queries), memory_bytes, fixed)
     k = max(max(ks, default=1), k_curve)
@@ -203,7 +215,9 @@ def score(
         Memory budget of the neighbourhood engine; default a quarter of the
         available memory, between 256 MiB and 8 GiB.
     curve_k_max : int, optional
-        Largest K of the co-ranking curve and of ``rnx_auc``; default ``max(ks)``.
+        Largest K of the co-ranking curve; default ``max(ks)``.  ``rnx_auc``
+        always covers K = 1..n-2 (exact up to about 5800 points, estimated from
+        sampled query points above; see :mod:`._rnx_area`), ``rnx_auc@k`` K = 1..k.
 
     Returns
     -------
@@ -228,13 +242,14 @@ def score(
         latent = _matrix(latent, "latent")
         if latent.shape[0] != n:
             raise InputError("latent", f"{n} rows like X, got {latent.shape[0]}")
+        latent = standard_points(latent)
     if n_pairs < 2 * JACKKNIFE_GROUPS:
         raise InputError("n_pairs", f"at least {2 * JACKKNIFE_GROUPS}, got {n_pairs}")
     if n_queries < 2:
         raise InputError("n_queries", f"at least 2, got {n_queries}")
     if memory_bytes is None:
         memory_bytes = default_memory_bytes()
-    query_seed, pair_seed = np.random.SeedSequence(seed).spawn(2)
+    query_seed, pair_seed, area_seed = np.random.SeedSequence(seed).spawn(3)
 
     sampled = estimate_above is not None and n > estimate_above and n_queries < n
     if sampled:
@@ -242,9 +257,16 @@ def score(
         log.info("neighbourhood measures estimated from %d of %d points", n_queries, n)
     else:
         queries = np.arange(n)
-    local = _local(x_points, x_matrix, y, ks, k_curve, queries, memory_bytes)
+    rows = _rows(x_points, x_matrix, y)
+    local = _local(*rows, ks, k_curve, queries, memory_bytes)
 
     values, intervals = local_estimates(local.terms, n, k_curve, sampled)
+    area_rng = np.random.default_rng(area_seed)
+    area, area_sampled = rnx_area(*rows, queries, sampled, n_queries, area_rng)
+    # The full-range area (K = 1..n-2) gets its interval, when sampled, from the same rule as the others.
+    area_value, area_interval = local_estimates({"rnx_auc": area}, n, n - 2, area_sampled)
+    values.update(area_value)
+    intervals.update(area_interval)
 
     g_values, g_halfwidths = global_measures(
         x_points,
@@ -265,6 +287,9 @@ def score(
         if len(np.unique(labels)) >= 2:
             values["silhouette"] = silhouette(y, labels, seed)
 
+    for key, value in values.items():
+        if not np.isfinite(value):
+            raise ValueError(f"{key} is not a finite number ({value}) for this input")
     big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
     curve = pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})
     return MeasureResult(values, intervals, frozenset(intervals), curve, _points(local.terms, queries, ks))
@@ -295,7 +320,7 @@ def evaluate(
     Y : array-like of shape (n, q)
         Embedding.
     k : int
-        Neighbourhood size (``1 <= k < n/2``); ``rnx_auc`` covers K = 1..k.
+        Neighbourhood size (``1 <= k < n/2``).
     labels : array-like of shape (n,), optional
         Classes; adds ``knn_accuracy`` and ``silhouette``.
     metric : {"euclidean", "precomputed"}
@@ -305,13 +330,15 @@ def evaluate(
     dict of str to float
         ``trustworthiness``, ``continuity``, ``knn_recall``, ``stress``,
         ``sammon_stress``, ``shepard_spearman``, ``mrre_data``,
-        ``mrre_embedding``, ``lcmc``, ``rnx_auc`` (and ``knn_accuracy``,
-        ``silhouette`` with labels).  Global measures are estimated from
+        ``mrre_embedding``, ``lcmc``, ``rnx_auc`` (K = 1..n-2), ``rnx_auc@k``
+        (K = 1..k; it keeps its suffix) and ``knn_accuracy``, ``silhouette``
+        with labels.  Global measures are estimated from
         sampled pairs above 5000 points, as in :func:`score`.
     """
     result = score(X, Y, ks=[k], labels=labels, metric=metric)
     suffix = f"@{k}"
-    return {key.removesuffix(suffix): float(v) for key, v in result.values.items()}
+    plain = {key: key.removesuffix(suffix) for key in result.values}
+    return {key if plain[key] in result.values else plain[key]: float(v) for key, v in result.values.items()}
 
 
 def coranking_curve(X: object, Y: object, k_max: int, metric: str = "euclidean") -> pd.DataFrame:
@@ -335,6 +362,6 @@ def coranking_curve(X: object, Y: object, k_max: int, metric: str = "euclidean")
     if n < 4:
         raise InputError("X", f"at least 4 points, got {n}")
     k_curve = _curve_k(k_max, [1], n)
-    local = _local(x_points, x_matrix, y, [], k_curve, np.arange(n), default_memory_bytes())
+    local = _local(*_rows(x_points, x_matrix, y), [], k_curve, np.arange(n), default_memory_bytes())
     big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
     return pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})

@@ -29,6 +29,10 @@ class MeasureInfo:
         One-line definition.
     source : str
         Publication the definition follows.
+    at_k_too : bool
+        The bare name is a measure of its own and ``name@k`` is a second one,
+        the same quantity restricted to neighbourhood sizes up to k
+        (``rnx_auc`` and ``rnx_auc@10``).
     """
 
     name: str
@@ -38,6 +42,7 @@ class MeasureInfo:
     needs: str | None
     definition: str
     source: str
+    at_k_too: bool = False
 
 
 MEASURES: dict[str, MeasureInfo] = {
@@ -105,8 +110,10 @@ MEASURES: dict[str, MeasureInfo] = {
             "local",
             False,
             None,
-            "area under R_NX(K) for K = 1..K_max on a log-K scale (weights 1/K)",
+            "area under R_NX(K) on a log-K scale (weights 1/K) over the whole range K = 1..n-2; "
+            "rnx_auc@k: the same area over K = 1..k only",
             "Lee, Peluffo-Ordonez & Verleysen 2015",
+            at_k_too=True,
         ),
         MeasureInfo(
             "stress",

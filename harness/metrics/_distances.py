@@ -5,9 +5,12 @@ Euclidean distances computed as ``||a||^2 + ||b||^2 - 2 a.b`` with a single
 float64 matrix product per block (BLAS-threaded).  The same numbers decide every
 neighbour list and every rank of a row, so the ranks of one row are always
 consistent with each other.  Rounding of this formula only matters for pairs
-whose squared distances differ by about 1e-15 of the squared norms; for
-coordinates on which float64 arithmetic is exact (small integers, for instance)
-the computed distances are exact and ties are true ties.
+whose squared distances differ by about 1e-15 of the squared norms, which is
+why the measures hand it standardised coordinates (centred on a median and
+scaled by a power of two, :mod:`._standard`): the norms are then the size of the
+spread, not of an offset.  For coordinates on which float64 arithmetic is exact
+(small integers or short binary fractions) the computed distances are exact and
+ties are true ties.
 
 Global measures (stress, Sammon stress, Shepard correlation) need accurate
 distances rather than an order, so :func:`pair_distances` uses the direct

@@ -6,8 +6,9 @@ import logging
 
 import numpy as np
 from sklearn.metrics import silhouette_score
-from sklearn.model_selection import StratifiedKFold, cross_val_score
-from sklearn.neighbors import KNeighborsClassifier
+from sklearn.model_selection import StratifiedKFold
+
+from ._neighbours import nearest_neighbours
 
 log = logging.getLogger(__name__)
 
@@ -26,23 +27,37 @@ def _dropped(measure: str, reason: str) -> float:
 def knn_accuracy(y: np.ndarray, labels: np.ndarray, k: int, seed: int) -> float:
     """Accuracy of a k-NN classifier in the embedding, stratified cross-validation.
 
-    scikit-learn's ``KNeighborsClassifier(n_neighbors=k)`` scored by stratified
-    k-fold cross-validation (5 folds, shuffled with ``seed``; as many folds as
-    the smallest class has members when that is fewer, at least 2).
+    The classifier of scikit-learn's ``KNeighborsClassifier(n_neighbors=k)``
+    (uniform weights: the most frequent class among the k nearest training
+    points, a tie in votes going to the first class in sorted order), scored by
+    stratified k-fold cross-validation (5 folds, shuffled with ``seed``; as many
+    folds as the smallest class has members when that is fewer, at least 2).
+    Neighbours follow the engine's rule, ties in distance broken by index (see
+    :mod:`._neighbours`), so the value does not depend on the column order or
+    offset of the embedding.
 
     Returns NaN, with the reason logged as a warning (so it lands in the cell's
     record), when the labels cannot support it: a class with a single member
     or a training fold with fewer than k points.  The other measures of the
     cell are kept.
     """
-    _, counts = np.unique(labels, return_counts=True)
+    classes, codes = np.unique(labels, return_inverse=True)
+    counts = np.bincount(codes)
     folds = int(min(FOLDS, counts.min()))
     if folds < 2:
         return _dropped(f"knn_accuracy@{k}", f"a class has {int(counts.min())} member; every class needs 2")
     if len(labels) - int(np.ceil(len(labels) / folds)) < k:
         return _dropped(f"knn_accuracy@{k}", f"a training fold has fewer than k={k} points")
     cv = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
-    scores = cross_val_score(KNeighborsClassifier(n_neighbors=k), y, labels, cv=cv)
+    scores = []
+    for train, test in cv.split(y, codes):
+        among = np.zeros(len(codes), dtype=bool)
+        among[train] = True
+        votes = codes[nearest_neighbours(y, k, test, among)]
+        offset = (np.arange(len(test)) * len(classes))[:, None]
+        tally = np.bincount((votes + offset).ravel(), minlength=len(test) * len(classes))
+        predicted = tally.reshape(len(test), len(classes)).argmax(axis=1)  # first maximum on ties
+        scores.append(np.mean(predicted == codes[test]))
     return float(np.mean(scores))
 
 

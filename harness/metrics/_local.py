@@ -15,8 +15,10 @@ Per-point terms, for point ``i`` with ranks ``rho`` (data) and ``r`` (embedding)
   embedding side ``sum over embedding k-NN j of |rho_ij - r_ij| / r_ij / H_k``.
 * Q_NX(K) term: ``overlap_i(K) / K``; R_NX(K) = ((n-1) Q_NX(K) - K) / (n-1-K)
   (Lee & Verleysen 2009); LCMC(k) = Q_NX(k) - k / (n-1) (Chen & Buja 2009).
-* rnx_auc: ``sum_K R_NX(K) / K / sum_K 1 / K`` for K = 1..K_auc
-  (Lee, Peluffo-Ordonez & Verleysen 2015); linear in the per-point overlaps.
+* rnx_auc@k: ``sum_K R_NX(K) / K / sum_K 1 / K`` for K = 1..k only, the area
+  of Lee, Peluffo-Ordonez & Verleysen (2015) truncated at k; linear in the
+  per-point overlaps.  Their full-range area (K = 1..n-2) is ``rnx_auc``, in
+  :mod:`._rnx_area`.
 """
 
 from __future__ import annotations
@@ -29,7 +31,7 @@ import numpy as np
 from ._ranks import RankBlock, RankWalk
 
 #: Measures computed at every k, in the order they are reported.
-PER_K = ("trustworthiness", "continuity", "knn_recall", "mrre_data", "mrre_embedding", "lcmc")
+PER_K = ("trustworthiness", "continuity", "knn_recall", "mrre_data", "mrre_embedding", "lcmc", "rnx_auc")
 
 
 @dataclass
@@ -39,7 +41,7 @@ class LocalTerms:
     Attributes
     ----------
     terms : dict of str to ndarray
-        ``"trustworthiness@10"`` etc. and ``"rnx_auc"``; one value per query point.
+        ``"trustworthiness@10"``, ``"rnx_auc@10"`` etc.; one value per query point.
     overlap_sum : ndarray of shape (k_curve,)
         Sum over query points of ``|data K-NN ∩ embedding K-NN|`` for K = 1..k_curve.
     n_queries : int
@@ -71,30 +73,32 @@ def _mrre_norm(n: int, k: int) -> float:
 
 
 def block_terms(
-    block: RankBlock, n: int, ks: Sequence[int], k_auc: int
+    block: RankBlock, n: int, ks: Sequence[int], k_curve: int
 ) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Per-point terms of one block of query points.
 
     Parameters
     ----------
     block : RankBlock
-        Rank tables with ``K >= max(max(ks), k_auc)`` columns.
+        Rank tables with ``K >= max(max(ks), k_curve)`` columns.
     n : int
         Number of points.
     ks : sequence of int
         Neighbourhood sizes.
-    k_auc : int
-        Largest K of the co-ranking curve and of its area.
+    k_curve : int
+        Largest K of the co-ranking curve.
 
     Returns
     -------
     terms : dict of str to ndarray of shape (b,)
-    overlap : ndarray of shape (b, k_auc)
-        Overlap counts for K = 1..k_auc.
+    overlap : ndarray of shape (b, k_curve)
+        Overlap counts for K = 1..k_curve.
     """
     rho = block.data_rank_of_embedding_nn
     r = block.embedding_rank_of_data_nn
     overlap = _overlaps(rho)
+    big_k = np.arange(1, rho.shape[1] + 1)
+    rnx = ((n - 1.0) * overlap[:, 1:] / big_k - big_k) / (n - 1.0 - big_k)
     terms: dict[str, np.ndarray] = {}
     for k in ks:
         pos = np.arange(1, k + 1)
@@ -106,14 +110,11 @@ def block_terms(
         terms[f"mrre_data@{k}"] = (np.abs(r[:, :k] - pos) / pos).sum(axis=1) / h
         terms[f"mrre_embedding@{k}"] = (np.abs(rho[:, :k] - pos) / pos).sum(axis=1) / h
         terms[f"lcmc@{k}"] = overlap[:, k] / k - k / (n - 1.0)
-    big_k = np.arange(1, k_auc + 1)
-    q = overlap[:, 1 : k_auc + 1] / big_k
-    rnx = ((n - 1.0) * q - big_k) / (n - 1.0 - big_k)
-    terms["rnx_auc"] = (rnx / big_k).sum(axis=1) / np.sum(1.0 / big_k)
-    return terms, overlap[:, 1 : k_auc + 1]
+        terms[f"rnx_auc@{k}"] = (rnx[:, :k] / big_k[:k]).sum(axis=1) / np.sum(1.0 / big_k[:k])
+    return terms, overlap[:, 1 : k_curve + 1]
 
 
-def collect(blocks: Iterable[RankBlock], n: int, ks: Sequence[int], k_auc: int) -> LocalTerms:
+def collect(blocks: Iterable[RankBlock], n: int, ks: Sequence[int], k_curve: int) -> LocalTerms:
     """Run the engine's blocks through :func:`block_terms` and gather the results.
 
     A :class:`RankWalk` is narrowed to exact ranks in the first ``max(ks)``
@@ -123,10 +124,10 @@ def collect(blocks: Iterable[RankBlock], n: int, ks: Sequence[int], k_auc: int) 
     if isinstance(blocks, RankWalk):
         blocks = blocks.exact_up_to(max(ks, default=0))
     parts: dict[str, list[np.ndarray]] = {}
-    overlap_sum = np.zeros(k_auc)
+    overlap_sum = np.zeros(k_curve)
     count = 0
     for block in blocks:
-        terms, overlap = block_terms(block, n, ks, k_auc)
+        terms, overlap = block_terms(block, n, ks, k_curve)
         for key, values in terms.items():
             parts.setdefault(key, []).append(values)
         overlap_sum += overlap.sum(axis=0)

@@ -291,7 +291,8 @@ class RankWalk:
         step = self.block_rows
         starts = list(range(0, len(self.queries), step))
         rows_max = min(step, len(self.queries))
-        lanes = max(1, min(THREADS, len(starts), _thread_budget()))
+        # (threadpool_info scans the loaded libraries: only asked when there is a choice)
+        lanes = 1 if len(starts) < 2 or THREADS < 2 else max(1, min(THREADS, len(starts), _thread_budget()))
         workers = [_Lane(self, rows_max) for _ in range(lanes)]
         if lanes == 1:
             for start in starts:

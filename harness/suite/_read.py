@@ -103,7 +103,7 @@ def measure_key(name: str, where: str, ks: tuple[int, ...] = (), *, any_k: bool 
             where, f"unknown measure {stem!r}{suggest(stem, MEASURES)}; see 'foldbench list measures'"
         )
     if at_sign:
-        if not MEASURES[stem].per_k:
+        if not (MEASURES[stem].per_k or MEASURES[stem].at_k_too):
             raise InputError(where, f"expected '{stem}' without '@k' ({stem} does not depend on k)")
         if not k.isdigit() or (not any_k and ks and int(k) not in ks):
             allowed = f" with k one of measures.k {list(ks)}" if ks else ""

@@ -1,0 +1,130 @@
+"""Area under the whole R_NX curve, K = 1..n-2, with weights 1/K (Lee, Peluffo-Ordonez & Verleysen 2015).
+
+    AUC = sum_{K=1..n-2} R_NX(K) / K  /  sum_{K=1..n-2} 1 / K
+
+R_NX(K) = ((n-1) Q_NX(K) - K) / (n-1-K) and Q_NX(K) is the mean over points of
+``|data K-NN ∩ embedding K-NN| / K`` (Lee & Verleysen 2009), so the area is the
+mean over points of a per-point area, which is what lets sampled query points
+estimate it with the same interval as every other local measure.
+
+The curve to K = n-2 needs every point's *whole* rank row in both spaces.
+For one query the overlap at every K follows from the two rank rows at once:
+point ``j`` is in both K-neighbourhoods exactly when ``max(rank_X(j),
+rank_Y(j)) <= K``, so a histogram of those maxima and a cumulative sum give
+the overlap for K = 1..n-2.  The rows are ordered by (distance, index) from
+the same float64 distance rows the neighbourhood engine reads, so ties are
+broken exactly as there (by index) and the query comes first.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ._distances import DistanceRows
+
+#: Full rank rows (query points times n) computed exactly; above, query points are sampled.
+FULL_RANK_ELEMENTS = 2**25
+#: Fewest sampled query points when the budget above would allow fewer.
+MIN_QUERIES = 100
+#: Distances per block of query rows (bounds the temporary arrays, about 50 bytes each).
+_BLOCK_ELEMENTS = 2**21
+
+
+def exact_affordable(n: int) -> bool:
+    """Whether full rank rows of all ``n`` points fit in :data:`FULL_RANK_ELEMENTS`."""
+    return n * n <= FULL_RANK_ELEMENTS
+
+
+def sample_size(n: int, n_queries: int) -> int:
+    """Query points sampled for ``n`` points when the exact area is not affordable."""
+    return int(min(n, n_queries, max(MIN_QUERIES, FULL_RANK_ELEMENTS // n)))
+
+
+def _ranks(dist: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Rank of every point in each row by (distance, index); the query gets 0."""
+    b, n = dist.shape
+    dist[np.arange(b), rows] = -np.inf
+    # The default sort is several times faster than a stable one but orders
+    # equal distances arbitrarily; rows that hold a tie are sorted again stably.
+    order = np.argsort(dist, axis=1)
+    ordered = np.take_along_axis(dist, order, axis=1)
+    tied = np.flatnonzero((ordered[:, 1:] == ordered[:, :-1]).any(axis=1))
+    if len(tied):
+        order[tied] = np.argsort(dist[tied], axis=1, kind="stable")
+    ranks = np.empty((b, n), dtype=np.intp)
+    np.put_along_axis(ranks, order, np.broadcast_to(np.arange(n), (b, n)), axis=1)
+    return ranks
+
+
+def area_terms(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray) -> np.ndarray:
+    """Per-point area under R_NX(K), K = 1..n-2, weights 1/K.
+
+    Parameters
+    ----------
+    data, embedding : DistanceRows
+        Distance rows of the two spaces (same ``n >= 3``).
+    queries : ndarray of int
+        Query points.
+
+    Returns
+    -------
+    ndarray of shape (len(queries),)
+        The mean of these over all points is the area of the mean curve.
+    """
+    n = data.n
+    big_k = np.arange(1, n - 1, dtype=np.float64)
+    weight = (1.0 / big_k) / np.sum(1.0 / big_k)
+    # The area is linear in the overlaps: sum_K w_K R_i(K) = sum_K c_K overlap_i(K) + c0,
+    # and sum_K c_K overlap_i(K) = sum_j suffix(max rank of j), suffix(m) = sum_{K >= m} c_K.
+    c = weight * (n - 1.0) / (big_k * (n - 1.0 - big_k))
+    c0 = -float(np.sum(weight * big_k / (n - 1.0 - big_k)))
+    suffix = np.zeros(n)
+    suffix[1 : n - 1] = np.cumsum(c[::-1])[::-1]
+    out = np.empty(len(queries))
+    step = max(1, _BLOCK_ELEMENTS // n)
+    for start in range(0, len(queries), step):
+        rows = np.asarray(queries[start : start + step], dtype=np.intp)
+        both = np.maximum(_ranks(data.block(rows), rows), _ranks(embedding.block(rows), rows))
+        # The query (rank 0 in both) is not its own neighbour: take out its suffix(0) = 0.
+        out[start : start + len(rows)] = suffix[both].sum(axis=1) + c0
+    return out
+
+
+def rnx_area(
+    data: DistanceRows,
+    embedding: DistanceRows,
+    queries: np.ndarray,
+    sampled: bool,
+    n_queries: int,
+    rng: np.random.Generator,
+) -> tuple[np.ndarray, bool]:
+    """Per-point terms of the full-range area: every point when affordable, else a sample.
+
+    Parameters
+    ----------
+    data, embedding : DistanceRows
+    queries : ndarray of int
+        The query points of the other neighbourhood measures.
+    sampled : bool
+        Whether ``queries`` is a sample; then the area is estimated from it
+        (or from a random part of it, as many points as :func:`sample_size` allows).
+    n_queries : int
+        Sample size asked for.
+    rng : numpy.random.Generator
+        Draws the sample when one is needed.
+
+    Returns
+    -------
+    terms : ndarray
+        One per-point area per point used; their mean is the area (or its estimate).
+    estimated : bool
+        The terms are a sample of the points (the caller gives the interval).
+    """
+    n = data.n
+    if not sampled and exact_affordable(n):
+        return area_terms(data, embedding, np.arange(n)), False
+    pool = queries if sampled else np.arange(n)
+    m = sample_size(n, n_queries)
+    if len(pool) > m:
+        pool = np.sort(rng.choice(pool, m, replace=False))
+    return area_terms(data, embedding, pool), True

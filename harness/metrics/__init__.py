@@ -282,10 +282,12 @@ def score(
     intervals.update({name: (g_values[name] - hw, g_values[name] + hw) for name, hw in g_halfwidths.items()})
 
     if labels is not None:
-        for k in ks:
-            values[f"knn_accuracy@{k}"] = knn_accuracy(y, labels, k, seed)
+        by_label = {f"knn_accuracy@{k}": knn_accuracy(y, labels, k, seed) for k in ks}
         if len(np.unique(labels)) >= 2:
-            values["silhouette"] = silhouette(y, labels, seed)
+            by_label["silhouette"] = silhouette(y, labels, seed)
+        # A label measure the classes cannot support is NaN with its reason logged: it is left out
+        # alone, and the cell keeps every other measure.
+        values.update({key: v for key, v in by_label.items() if not np.isnan(v)})
 
     for key, value in values.items():
         if not np.isfinite(value):

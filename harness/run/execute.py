@@ -140,7 +140,7 @@ def execute_suite(
         execution.jobs,
         folder.path,
     )
-    todo = _from_cache(todo, suite, folder, cache, counter)
+    todo = _from_cache(todo, suite, folder, cache, counter, {n: d.n for n, d in datasets.items()})
     stop = threading.Event()
     results = execute(todo, datasets, suite.scoring, execution, backend=backend_name, cache=cache, stop=stop)
     with _stop_on_ctrl_c(stop):
@@ -223,14 +223,19 @@ def _open_folder(
 
 
 def _from_cache(
-    todo: list[Cell], suite: Suite, folder: RunFolder, cache: EmbeddingCache | None, counter: _Progress
+    todo: list[Cell],
+    suite: Suite,
+    folder: RunFolder,
+    cache: EmbeddingCache | None,
+    counter: _Progress,
+    rows: dict[str, int],
 ) -> list[Cell]:
-    """Store the cells the cache has finished results for; return the rest."""
+    """Store the cells the cache has verified finished results for; return the rest."""
     if cache is None:
         return todo
     left = []
     for cell in todo:
-        result = cache.get_result(cell, suite.scoring)
+        result = cache.get_result(cell, suite.scoring, rows.get(cell.dataset))
         if result is None:
             left.append(cell)
             continue

@@ -28,6 +28,7 @@ from hypothesis import strategies as st
 from harness.cli import main
 from harness.errors import InputError
 from harness.run.folder import RunFolder
+from harness.run.integrity import seal
 
 SUITE = """\
 name: tiny
@@ -199,6 +200,21 @@ def _score_text(doc: dict) -> dict:
     return doc
 
 
+def _format_one(doc: dict) -> dict:
+    """An entry as the cache wrote it before format 2: no seal, no digests."""
+    return {k: v for k, v in doc.items() if k not in ("format", "sha256", "key", "embedding")}
+
+
+def _resealed(change: Callable[[dict], None]) -> Callable[[dict], dict]:
+    """Change a document and seal it again: only the checks beyond the seal can catch it."""
+
+    def edit(doc: dict) -> dict:
+        change(doc)
+        return seal(doc)
+
+    return edit
+
+
 def _fails_at_rescoring(env: Env) -> str:
     """No cached scores and a 10 x 2 embedding: the known fit fails to score and must be refitted."""
     _edit_meta(env, lambda doc: {**doc, "scores": {}})
@@ -366,6 +382,11 @@ CASES: dict[str, Callable[..., str]] = {
     "cache: metadata [1]": _cache_meta(lambda doc: [1]),
     "cache: a score 'abc'": _cache_meta(_score_text),
     "cache: a bad entry is logged once": _logged_once,
+    "cache: an entry of format 1": _cache_meta(_format_one),
+    "cache: sealed, written for another key": _cache_meta(_resealed(lambda d: d.update(key="0" * 32))),
+    "cache: sealed, a score out of range": _cache_meta(
+        _resealed(lambda d: [v["values"].update({MEASURE: 5.0}) for v in d["scores"].values()])
+    ),
     "cache clear: a folder that is not a cache": _clear_keeps_user_files,
     "cache clear: only entries": _clear_deletes_entries_only,
     "check: a baseline of another suite": _check_refused(lambda env: env.other),
@@ -383,6 +404,8 @@ CASES: dict[str, Callable[..., str]] = {
     "check: manifest of wrong types": _check_refused(_bad_manifest),
     "records: a copy under another name": _extra_copy,
     "records: trustworthiness 5.0 on resume": _record_edit(_trust_five),
+    "records: sealed, trustworthiness 5.0 on resume": _record_edit(_resealed(_trust_five)),
+    "records: sealed, status banana on resume": _record_edit(_resealed(lambda d: d.update(status="banana"))),
     "records: {} on resume": _record_edit(lambda doc: {}),
     "records: [1, 2] on resume": _record_edit(lambda doc: [1, 2]),
     "records: {} in report": _report_record({}),

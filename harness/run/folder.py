@@ -43,6 +43,7 @@ import pandas as pd
 
 from ..config import STORED_STATUSES
 from ..errors import InputError
+from ..metrics import MEASURES, measure_stem
 from ..suite import Suite, parse_suite
 from ..text import exception_line, params_text
 from . import atomic
@@ -578,7 +579,8 @@ def _checked_scores(scores: pd.DataFrame, where: str) -> pd.DataFrame:
         cell = ", ".join(f"{c}={scores[c].iloc[i]}" for c in ID_COLUMNS)
         raise InputError(where, f"line {i + 2}: expected one row per cell; {cell} is there twice")
     columns = ["seed", "fit_seconds", "fit_peak_mb", "score_seconds"]
-    columns += [c for c in scores.columns if c not in ID_COLUMNS + INFO_COLUMNS]
+    known = [c for c in scores.columns if measure_stem(c.removesuffix("_ci95")) in MEASURES]
+    columns += [c for c in known if c not in ID_COLUMNS + INFO_COLUMNS]
     for column in [c for c in columns if c in scores]:
         scores[column] = _checked_column(scores[column], column, where)
     return scores

@@ -12,6 +12,7 @@ from harness.api import rerun, run_suite
 from harness.compare.rerun import compare_cells, rerun_text
 from harness.errors import InputError
 from harness.run import RunFolder
+from harness.run.integrity import array_facts, seal
 from harness.suite import parse_suite
 
 SUITE = """\
@@ -50,6 +51,13 @@ def _copy(original, tmp_path):
     return copy
 
 
+def _reseal(record, doc, embedding=None):
+    """Write a changed record as a run would have (sealed), so it stands for a run that differs."""
+    if embedding is not None:
+        doc["embedding"] = array_facts(embedding)
+    record.write_text(json.dumps(seal(doc)))
+
+
 def test_a_changed_embedding_is_reported(original, tmp_path):
     copy = _copy(original, tmp_path)
     key = RunFolder(copy).scores["key"].iloc[0]
@@ -57,6 +65,8 @@ def test_a_changed_embedding_is_reported(original, tmp_path):
     Y = np.load(path)
     Y[3, 1] += 1e-6
     np.save(path, Y)
+    record = copy / "cells" / f"{key}.json"
+    _reseal(record, json.loads(record.read_text()), Y)
     table = compare_cells(RunFolder(original), RunFolder(copy))
     row = table[table["verdict"] != "identical"]
     assert len(row) == 1 and row["verdict"].iloc[0] == "different"
@@ -69,7 +79,7 @@ def test_round_off_counts_as_equal_within_tolerance(original, tmp_path):
     record = next((copy / "cells").glob("*.json"))
     doc = json.loads(record.read_text())
     doc["values"]["stress"] += 1e-12
-    record.write_text(json.dumps(doc))
+    _reseal(record, doc)
     table = compare_cells(RunFolder(original), RunFolder(copy))
     changed = table[table["verdict"] != "identical"]
     assert changed["verdict"].tolist() == ["equal within 1e-9"]

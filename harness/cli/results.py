@@ -49,15 +49,26 @@ def _check_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--alpha", type=float, help="significance level of the Welch test (default 0.05)")
     p.add_argument("--junit", metavar="FILE", help="also write JUnit XML, one test case per comparison")
     p.add_argument("--all", action="store_true", help="also list unchanged comparisons")
+    p.add_argument(
+        "--allow-missing",
+        action="store_true",
+        help="pass even when a configuration is in only one of the two runs (by default that fails)",
+    )
 
 
 def _check(args: argparse.Namespace) -> int:
-    from ..compare.check import check_runs, check_text, write_check
+    from ..compare.check import check_runs, check_text, junit_target, write_check
     from ..suite.tolerances import parse_tolerance_flags
 
     _level(args.alpha, "--alpha")
+    if args.junit is not None:
+        junit_target(args.junit)
     outcome = check_runs(
-        args.run_dir, args.baseline, tolerances=parse_tolerance_flags(args.tolerance or []), alpha=args.alpha
+        args.run_dir,
+        args.baseline,
+        tolerances=parse_tolerance_flags(args.tolerance or []),
+        alpha=args.alpha,
+        allow_missing=args.allow_missing,
     )
     print(check_text(outcome, show_unchanged=args.all))
     write_check(outcome, args.junit)

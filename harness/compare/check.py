@@ -159,6 +159,10 @@ class CheckOutcome:
         The two run folders.
     alpha : float
         Significance level used.
+    one_sided : list of tuple
+        Configurations (dataset, method, params) found on one side only.
+    allow_missing : bool
+        Configurations on one side only do not fail the check.
     """
 
     table: pd.DataFrame
@@ -168,6 +172,8 @@ class CheckOutcome:
     current: Path = Path()
     baseline: Path = Path()
     alpha: float = 0.05
+    one_sided: list[tuple[str, ...]] = field(default_factory=list)
+    allow_missing: bool = False
 
     @property
     def regressions(self) -> pd.DataFrame:
@@ -186,6 +192,7 @@ def check_runs(
     *,
     tolerances: Mapping[str, Any] | None = None,
     alpha: float | None = None,
+    allow_missing: bool = False,
 ) -> CheckOutcome:
     """Compare a finished run with a baseline run and decide whether it regressed.
 
@@ -203,6 +210,9 @@ def check_runs(
     alpha : float, optional
         Significance level of the one-sided Welch test (default: the suite's
         ``tolerances.alpha``, else 0.05).
+    allow_missing : bool
+        Let configurations found in only one of the two runs pass; by default
+        they fail the check.
 
     Returns
     -------
@@ -211,7 +221,9 @@ def check_runs(
     Raises
     ------
     InputError
-        When a folder is missing or is not a readable run folder.
+        When a folder is missing or is not a readable run folder, its scores
+        are not valid (unknown statuses, duplicated cells, values that are not
+        numbers in the measure's range), or the two runs share no configuration.
     """
     cur = RunFolder.open(current, "run folder")
     base = RunFolder.open(baseline, "baseline folder")
@@ -220,8 +232,10 @@ def check_runs(
     level = alpha_of(entries) if alpha is None else float(alpha)
     if not 0 < level < 1:
         raise InputError("alpha", f"expected a significance level between 0 and 1, got {alpha}")
+    one_sided = _one_sided(cur, base)
     table, single = _compare(cur.scores, base.scores, entries, level)
-    passed = not ((table["verdict"] == "regression") & table["gated"]).any()
+    regressed = ((table["verdict"] == "regression") & table["gated"]).any()
+    passed = not regressed and (allow_missing or not one_sided)
     outcome = CheckOutcome(
         table,
         bool(passed),
@@ -230,9 +244,24 @@ def check_runs(
         cur.path,
         base.path,
         level,
+        one_sided,
+        allow_missing,
     )
     log.info("check %s against %s: %s", cur.path, base.path, "passed" if passed else "regressed")
     return outcome
+
+
+def _one_sided(cur: RunFolder, base: RunFolder) -> list[tuple[str, ...]]:
+    """Configurations in only one run; refuses two runs with none in common."""
+    configs_c = {tuple(map(str, k)) for k in cur.scores[CONFIG].drop_duplicates().itertuples(index=False)}
+    configs_b = {tuple(map(str, k)) for k in base.scores[CONFIG].drop_duplicates().itertuples(index=False)}
+    if not configs_c & configs_b:
+        raise InputError(
+            base.where,
+            f"expected a baseline of the same configurations (dataset, method, params); none of its "
+            f"{len(configs_b)} is among the {len(configs_c)} of the run",
+        )
+    return sorted(configs_c ^ configs_b)
 
 
 def _compare(
@@ -391,8 +420,16 @@ def _num(value: float, signed: bool = False) -> str:
 
 def _summary_line(outcome: CheckOutcome) -> str:
     counts = ", ".join(f"{n} {v}" for v, n in outcome.counts().items() if n)
-    head = "PASSED" if outcome.passed else f"FAILED: {len(outcome.regressions)} regressions"
-    return f"{head} ({counts or 'nothing compared'}; alpha {outcome.alpha:g})"
+    reasons = []
+    if len(outcome.regressions):
+        reasons.append(f"{len(outcome.regressions)} regressions")
+    if outcome.one_sided and not outcome.allow_missing:
+        reasons.append(
+            f"{len(outcome.one_sided)} configurations in only one of the runs (--allow-missing accepts them)"
+        )
+    head = "PASSED" if outcome.passed else f"FAILED: {'; '.join(reasons)}"
+    compared = f"{len(outcome.table)} comparisons"
+    return f"{head} ({compared}{': ' + counts if counts else ''}; alpha {outcome.alpha:g})"
 
 
 def check_text(outcome: CheckOutcome, *, show_unchanged: bool = False) -> str:
@@ -547,6 +584,27 @@ def junit_xml(outcome: CheckOutcome) -> str:
 
 def write_check(outcome: CheckOutcome, junit: str | Path | None = None) -> None:
     """Write ``check.md`` into the judged run folder, and JUnit XML to ``junit`` when given."""
+    if junit is not None:
+        junit_target(junit)
     RunFolder(outcome.current).write_text("check.md", check_markdown(outcome))
     if junit is not None:
-        write_text(Path(junit), junit_xml(outcome))
+        try:
+            write_text(Path(junit), junit_xml(outcome))
+        except OSError as exc:
+            raise InputError("--junit", f"expected a file that can be written ({exc.strerror})") from None
+
+
+def junit_target(junit: str | Path) -> Path:
+    """Check that ``junit`` names a file in an existing folder (not a folder); returns it.
+
+    Raises
+    ------
+    InputError
+        When it names a folder or its folder does not exist; nothing is written.
+    """
+    path = Path(junit)
+    if path.is_dir():
+        raise InputError("--junit", f"expected a file name, {path} is a folder")
+    if not path.parent.is_dir():
+        raise InputError("--junit", f"expected a file in an existing folder; {path.parent} is not one")
+    return path

@@ -85,8 +85,14 @@ def compute_cell(
     """
     if known is not None:
         result = score_cell(cell, dataset, known.embedding, scoring)
-        result.fit_seconds, result.fit_peak_mb, result.from_cache = known.fit_seconds, known.fit_peak_mb, True
-        return result
+        if result.status == CellStatus.OK:
+            result.fit_seconds, result.fit_peak_mb = known.fit_seconds, known.fit_peak_mb
+            result.from_cache = True
+            return result
+        # a known fit that cannot be scored is not trusted: fit again
+        refit = compute_cell(cell, dataset, scoring, None, roots)
+        refit.warnings += (f"the cached embedding was not used ({result.error}); fitted again",)
+        return refit
     try:
         spec = get_method_spec(cell.use, roots=roots)
         with _PeakMeter() as meter:

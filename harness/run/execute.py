@@ -160,7 +160,8 @@ def execute_suite(
         stop = _Stop()
         with _stop_on_signals(stop):
             counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
-            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter)
+            rows = {name: d.n for name, d in datasets.items()}
+            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows)
             results = execute(
                 todo,
                 datasets,
@@ -197,15 +198,19 @@ def _store_known(
     done_keys: set[str],
     cache: EmbeddingCache | None,
     counter: _Progress,
+    rows: dict[str, int],
 ) -> list[Cell]:
-    """Store the refused cells and those the cache has finished; return the cells left to compute."""
+    """Store the refused cells and those the cache has finished; return the cells left to compute.
+
+    ``rows`` gives each dataset's size, so that a cached embedding of another size is not used.
+    """
     for result in refused:
         if result.cell.key not in done_keys:
             folder.write_cell(result)
             counter.stored(result)
     todo = [c for c in cells if c.key not in done_keys]
     log.info("running %d cells (%d already done) into %s", len(todo), counter.done, folder.path)
-    return _from_cache(todo, suite, folder, cache, counter)
+    return _from_cache(todo, suite, folder, cache, counter, rows)
 
 
 def _store_results(
@@ -300,14 +305,19 @@ def _open_folder(
 
 
 def _from_cache(
-    todo: list[Cell], suite: Suite, folder: RunFolder, cache: EmbeddingCache | None, counter: _Progress
+    todo: list[Cell],
+    suite: Suite,
+    folder: RunFolder,
+    cache: EmbeddingCache | None,
+    counter: _Progress,
+    rows: dict[str, int],
 ) -> list[Cell]:
-    """Store the cells the cache has finished results for; return the rest."""
+    """Store the cells the cache has verified finished results for; return the rest."""
     if cache is None:
         return todo
     left = []
     for cell in todo:
-        result = cache.get_result(cell, suite.scoring)
+        result = cache.get_result(cell, suite.scoring, rows.get(cell.dataset))
         if result is None:
             left.append(cell)
             continue

@@ -15,12 +15,24 @@ Layout of ``<root>/<suite>/<run id>/``::
 
 Every write is atomic (:mod:`harness.run.atomic`).  A folder is plain files
 that a person can open without the package.
+
+What is read back is verified (:mod:`harness.run.integrity`).  A cell record is
+sealed with the SHA-256 of its content and names its key and the digests of its
+embedding and curve.  A record filed under another cell's name is ignored with a
+warning; a damaged record (or one whose embedding or curve does not match) means
+"not done" to ``--resume`` and is a one-line error to readers of scores.  A
+``scores.csv`` read in place of records must hold known statuses, one row per
+cell and measure values inside their ranges; the manifest's fields must have
+their types.
 """
 
 from __future__ import annotations
 
+import hashlib
+import io
 import json
 import logging
+import re
 from dataclasses import asdict
 from datetime import UTC, datetime
 from functools import cached_property
@@ -30,13 +42,25 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..config import STORED_STATUSES
 from ..errors import InputError
+from ..metrics import MEASURES, measure_stem
 from ..suite import Suite, parse_suite
 from ..text import exception_line, params_text
 from . import atomic
 from .cells import CellResult
+from .integrity import (
+    FORMAT,
+    array_facts,
+    array_problem,
+    measure_range,
+    seal,
+    seal_problem,
+    value_problem,
+    values_problem,
+)
 
-logger = logging.getLogger(__name__)
+log = logging.getLogger(__name__)
 
 ID_COLUMNS = ["dataset", "method", "params", "seed"]
 #: Suffixes of the columns holding the bounds of an estimated value's 95% interval.
@@ -57,24 +81,92 @@ _EXPECTED = "expected a run folder made by 'foldbench run' (manifest.json and ce
 
 
 def cell_record(result: CellResult) -> dict[str, Any]:
-    """The JSON document of a finished cell."""
+    """The sealed JSON document of a finished cell (with the digests of its embedding and curve)."""
     c = result.cell
-    return {
-        "key": c.key,
-        "cell": asdict(c),
-        "status": str(result.status),
-        "error": result.error,
-        "detail": result.detail,
-        "values": result.values,
-        "intervals": {k: list(v) for k, v in result.intervals.items()},
-        "estimated": list(result.estimated),
-        "fit_seconds": result.fit_seconds,
-        "fit_peak_mb": result.fit_peak_mb,
-        "score_seconds": result.score_seconds,
-        "from_cache": result.from_cache,
-        "warnings": list(result.warnings),
-        "finished": datetime.now(UTC).isoformat(timespec="seconds"),
-    }
+    return seal(
+        {
+            "format": FORMAT,
+            "key": c.key,
+            "cell": asdict(c),
+            "status": str(result.status),
+            "error": result.error,
+            "detail": result.detail,
+            "values": result.values,
+            "intervals": {k: list(v) for k, v in result.intervals.items()},
+            "estimated": list(result.estimated),
+            "fit_seconds": result.fit_seconds,
+            "fit_peak_mb": result.fit_peak_mb,
+            "score_seconds": result.score_seconds,
+            "from_cache": result.from_cache,
+            "warnings": list(result.warnings),
+            "embedding": None if result.embedding is None else array_facts(result.embedding),
+            "curve": None if result.curve is None else {"sha256": _text_digest(_curve_text(result.curve))},
+            "points": None if result.points is None else {"sha256": _text_digest(_curve_text(result.points))},
+            "finished": datetime.now(UTC).isoformat(timespec="seconds"),
+        }
+    )
+
+
+def _curve_text(curve: pd.DataFrame) -> str:
+    return curve.to_csv(index=False)
+
+
+def _text_digest(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+_KEY = re.compile(r"[0-9a-f]{16}")
+_CELL_FIELDS = {"dataset", "method", "use", "params", "seed", "dimensions", "data_fingerprint"}
+
+
+def record_problem(doc: Any) -> str | None:
+    """Why ``doc`` is not an intact cell record, or ``None``."""
+    problem = seal_problem(doc)
+    if problem:
+        return problem
+    cell = doc.get("cell")
+    if not isinstance(cell, dict) or set(cell) != _CELL_FIELDS:
+        return "its cell is not a cell"
+    if not isinstance(doc.get("key"), str) or not _KEY.fullmatch(doc["key"]):
+        return "its key is not a cell key"
+    if doc.get("status") not in STORED_STATUSES:
+        return f"status {doc.get('status')!r} is not one of {', '.join(sorted(STORED_STATUSES))}"
+    for name in ("fit_seconds", "fit_peak_mb", "score_seconds"):
+        problem = problem or value_problem(name, doc.get(name))
+    return (
+        problem
+        or values_problem(doc.get("values"))
+        or _intervals_problem(doc.get("intervals"))
+        or _types_problem(doc)
+    )
+
+
+def _intervals_problem(intervals: Any) -> str | None:
+    if intervals is None:
+        return None
+    if not isinstance(intervals, dict):
+        return "its intervals are not an object"
+    for name, bounds in intervals.items():
+        ok = (
+            isinstance(bounds, list)
+            and len(bounds) == 2
+            and all(isinstance(b, (int, float)) and not isinstance(b, bool) for b in bounds)
+            and bounds[0] <= bounds[1]
+        )
+        if not ok:
+            return f"the interval of {name} is not a pair of numbers low <= high"
+    return None
+
+
+def _types_problem(doc: dict[str, Any]) -> str | None:
+    expected = {"error": str, "detail": str, "estimated": list, "warnings": list, "from_cache": bool}
+    for name, kind in expected.items():
+        if not isinstance(doc.get(name), kind):
+            return f"{name} is not a {kind.__name__}"
+    for name in ("embedding", "curve", "points"):
+        if doc.get(name) is not None and not isinstance(doc[name], dict):
+            return f"{name} is not an object"
+    return None
 
 
 def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> pd.DataFrame:
@@ -130,6 +222,61 @@ def _suite_positions(frame: pd.DataFrame, suite: Suite) -> list[tuple[int, int, 
         (datasets.get(d, far), methods.get(m, far), points.get(m, {}).get(p, far), seeds.get(s, far))
         for d, m, p, s in zip(frame["dataset"], frame["method"], frame["params"], frame["seed"])
     ]
+
+
+#: Types of the manifest's fields (absent fields pass; an older manifest may lack some).
+_MANIFEST_TYPES: dict[str, type | tuple[type, ...]] = {
+    "suite": dict,
+    "seeds": list,
+    "started": str,
+    "finished": str,
+    "environment": dict,
+    "datasets": dict,
+    "cells": int,
+    "counts": dict,
+    "backend": dict,
+    "resumed": list,
+}
+_ENVIRONMENT_TYPES: dict[str, type | tuple[type, ...]] = {
+    "packages": dict,
+    "blas": list,
+    "thread_env": dict,
+    "plugins": dict,
+    "cpu_count": (int, type(None)),
+}
+
+
+def manifest_problem(manifest: dict[str, Any]) -> str | None:
+    """Why a manifest's fields do not have the types 'foldbench run' writes, or ``None``."""
+    problem = _fields_problem(manifest, _MANIFEST_TYPES, "")
+    if problem:
+        return problem
+    if not all(isinstance(s, int) and not isinstance(s, bool) for s in manifest.get("seeds") or []):
+        return "field seeds: expected a list of integers"
+    for name, part in (manifest.get("suite") or {}).items():
+        if not isinstance(part, (str, type(None))):
+            return f"field suite.{name}: expected text"
+    for name, entry in (manifest.get("datasets") or {}).items():
+        if not isinstance(entry, dict) or not isinstance(entry.get("fingerprint", ""), (str, type(None))):
+            return f"field datasets.{name}: expected an object with a text fingerprint"
+    env = manifest.get("environment") or {}
+    problem = _fields_problem(env, _ENVIRONMENT_TYPES, "environment.")
+    if problem:
+        return problem
+    if not all(isinstance(lib, dict) for lib in env.get("blas") or []):
+        return "field environment.blas: expected a list of objects"
+    if not all(isinstance(p, (dict, type(None))) for p in (env.get("plugins") or {}).values()):
+        return "field environment.plugins: expected objects"
+    return None
+
+
+def _fields_problem(doc: dict[str, Any], types: dict[str, Any], prefix: str) -> str | None:
+    for name, kind in types.items():
+        value = doc.get(name)
+        if value is not None and (not isinstance(value, kind) or isinstance(value, bool)):
+            names = kind.__name__ if isinstance(kind, type) else " or ".join(k.__name__ for k in kind)
+            return f"field {prefix}{name}: expected {names}, got {type(value).__name__}"
+    return None
 
 
 class RunFolder:
@@ -254,6 +401,11 @@ class RunFolder:
             raise InputError(
                 f"{self.where}/manifest.json", "expected a JSON object: the manifest of 'foldbench run'"
             )
+        problem = manifest_problem(manifest)
+        if problem:
+            raise InputError(
+                f"{self.where}/manifest.json", f"expected the manifest of 'foldbench run'; {problem}"
+            )
         return manifest
 
     @property
@@ -272,25 +424,73 @@ class RunFolder:
         recorded = (self.manifest.get("suite") or {}).get("path") or str(path)
         return parse_suite(text, str(recorded), resolve_plugins=False)
 
-    def records(self) -> list[dict[str, Any]]:
-        """All cell records (unreadable or partial files are ignored)."""
+    def _read_records(self) -> tuple[list[dict[str, Any]], list[tuple[Path, str]]]:
+        """Intact records, and damaged record files with the reason; misfiled copies are left out."""
         folder = self.path / "cells"
-        records = []
+        good, damaged = [], []
         for path in sorted(folder.glob("*.json")) if folder.is_dir() else []:
             try:
-                records.append(json.loads(path.read_text(encoding="utf-8")))
-            except (OSError, ValueError):
+                doc = json.loads(path.read_text(encoding="utf-8"))
+            except (OSError, ValueError) as exc:
+                damaged.append((path, f"not readable JSON ({type(exc).__name__})"))
                 continue
-        return records
+            key = doc.get("key") if isinstance(doc, dict) else None
+            if isinstance(key, str) and key != path.stem:
+                self._warn(path, f"it holds the record of cell {key}, not of {path.stem}; ignored")
+                continue
+            problem = record_problem(doc) or (None if _KEY.fullmatch(path.stem) else "not a cell key")
+            if problem:
+                damaged.append((path, problem))
+            else:
+                good.append(doc)
+        return good, damaged
+
+    def _warn(self, path: Path, message: str) -> None:
+        told = self.__dict__.setdefault("_told", set())
+        if path not in told:
+            told.add(path)
+            log.warning("%s/cells/%s: %s", self.where, path.name, message)
+
+    def records(self) -> list[dict[str, Any]]:
+        """The intact cell records; damaged or misfiled ones are left out with a warning."""
+        good, damaged = self._read_records()
+        for path, problem in damaged:
+            self._warn(path, f"not an intact cell record ({problem}); the cell counts as not done")
+        return good
 
     def finished_keys(self) -> set[str]:
-        """Keys of the cells already recorded."""
-        return {r["key"] for r in self.records()}
+        """Keys of the cells whose record, embedding and curve are intact (what ``--resume`` skips)."""
+        done = set()
+        for record in self.records():
+            try:
+                self._verified_files(record)
+            except InputError as err:
+                self._warn(
+                    self.path / "cells" / f"{record['key']}.json", f"{err.expected}; computing it again"
+                )
+                continue
+            done.add(record["key"])
+        return done
+
+    def _verified_files(self, record: dict[str, Any]) -> None:
+        key = record["key"]
+        if record.get("embedding") is not None and self.embedding(key) is None:
+            raise InputError(self.where, f"embeddings/{key}.npy is missing")
+        if record.get("curve") is not None and self.curve(key) is None:
+            raise InputError(self.where, f"curves/{key}.csv is missing")
 
     @cached_property
     def scores(self) -> pd.DataFrame:
         """A row per cell, rebuilt from the cell records (or read from ``scores.csv`` when there are none)."""
-        records = self.records()
+        records, damaged = self._read_records()
+        if damaged:
+            path, problem = damaged[0]
+            more = f" (and {len(damaged) - 1} more)" if len(damaged) > 1 else ""
+            raise InputError(
+                f"{self.where}/cells/{path.name}",
+                f"expected an intact cell record ({problem}){more}; delete it, or run the suite "
+                f"again with --resume {self.path} to compute it again",
+            )
         if records:
             try:
                 return scores_frame(records, self.suite if self.has_suite else None)
@@ -307,7 +507,12 @@ class RunFolder:
                 self.where, "no finished cells (cells/*.json) and no scores.csv; expected a finished run"
             )
         try:
-            scores = pd.read_csv(csv, dtype={"params": str, "dataset": str, "method": str})
+            scores = pd.read_csv(
+                csv,
+                dtype={"params": str, "dataset": str, "method": str, "status": str},
+                keep_default_na=False,
+                na_values=[""],
+            )
         except (OSError, ValueError, pd.errors.ParserError) as exc:
             raise InputError(
                 f"{self.where}/scores.csv", f"expected a readable CSV table ({exception_line(exc, 200)})"
@@ -319,35 +524,91 @@ class RunFolder:
                 f"{self.where}/scores.csv",
                 f"expected columns {', '.join(needed)}; missing {', '.join(missing)}",
             )
-        return scores
+        return _checked_scores(scores, f"{self.where}/scores.csv")
+
+    def _record_of(self, key: str) -> dict[str, Any] | None:
+        """The intact record of the cell with this key, or ``None``."""
+        path = self.path / "cells" / f"{key}.json"
+        try:
+            doc = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            return None
+        return doc if record_problem(doc) is None and doc.get("key") == key else None
 
     def embedding(self, key: str) -> np.ndarray | None:
-        """The stored embedding of the cell with this key (``scores['key']``), or ``None``."""
+        """The verified embedding of the cell with this key (``scores['key']``), or ``None``.
+
+        ``None`` when the cell has no intact record naming an embedding.
+
+        Raises
+        ------
+        InputError
+            When the file does not match the digest and shape its record names.
+        """
+        record = self._record_of(key)
         path = self.path / "embeddings" / f"{key}.npy"
-        return np.load(path, allow_pickle=False) if path.exists() else None
+        if record is None or record.get("embedding") is None or not path.exists():
+            return None
+        try:
+            array = np.load(path, allow_pickle=False)
+        except (OSError, ValueError, EOFError) as exc:
+            raise InputError(
+                f"{self.where}/embeddings/{path.name}", f"expected a .npy array ({exc})"
+            ) from None
+        problem = array_problem(array, record["embedding"])
+        if problem:
+            raise InputError(
+                f"{self.where}/embeddings/{path.name}",
+                f"expected the embedding its cell record names ({problem})",
+            )
+        return array
 
     def curve(self, key: str) -> pd.DataFrame | None:
-        """The stored co-ranking curve of the cell with this key, or ``None``."""
+        """The verified co-ranking curve of the cell with this key, or ``None``.
+
+        Raises
+        ------
+        InputError
+            When the file does not match the digest its record names.
+        """
+        record = self._record_of(key)
         path = self.path / "curves" / f"{key}.csv"
-        return pd.read_csv(path) if path.exists() else None
+        if record is None or record.get("curve") is None or not path.exists():
+            return None
+        try:
+            text = path.read_bytes().decode("utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise InputError(f"{self.where}/curves/{path.name}", f"expected a CSV table ({exc})") from None
+        if _text_digest(text) != record["curve"].get("sha256"):
+            raise InputError(
+                f"{self.where}/curves/{path.name}",
+                "expected the curve its cell record names (SHA-256 differs)",
+            )
+        return pd.read_csv(io.StringIO(text))
 
     def points(self, key: str) -> pd.DataFrame | None:
         """The per-point table of the cell with this key, or ``None`` when absent or damaged.
 
         Columns ``point`` (row index into the dataset) and the point's own
         ``trustworthiness@k``, ``continuity@k`` and ``knn_recall@k`` terms; the
-        mean of a column is the measure in ``scores.csv``.  A table whose
-        indices repeat or whose terms leave [0, 1] is not used (logged).
+        mean of a column is the measure in ``scores.csv``.  A table that is not
+        the one its cell record names, or whose indices repeat or terms leave
+        [0, 1], is not used (logged).
         """
+        record = self._record_of(key)
         path = self.path / "points" / f"{key}.csv"
-        if not path.exists():
+        if record is None or record.get("points") is None or not path.exists():
             return None
         try:
-            table = pd.read_csv(path)
+            text = path.read_bytes().decode("utf-8")
+            if _text_digest(text) != record["points"].get("sha256"):
+                log.warning("%s: points/%s.csv is not the table its record names; not used", self.where, key)
+                return None
+            table = pd.read_csv(io.StringIO(text))
             terms = table.drop(columns=["point"]).to_numpy(dtype=np.float64)
             index = table["point"].to_numpy()
-        except (OSError, ValueError, KeyError, pd.errors.ParserError) as exc:
-            logger.warning("%s: points/%s.csv is unreadable (%s); not used", self.where, key, exc)
+        except (OSError, UnicodeDecodeError, ValueError, KeyError, pd.errors.ParserError) as exc:
+            log.warning("%s: points/%s.csv is unreadable (%s); not used", self.where, key, exc)
             return None
         bad = (
             not np.issubdtype(index.dtype, np.integer)
@@ -357,6 +618,52 @@ class RunFolder:
             or (terms.size and (terms.min() < 0 or terms.max() > 1))
         )
         if bad:
-            logger.warning("%s: points/%s.csv holds impossible values; not used", self.where, key)
+            log.warning("%s: points/%s.csv holds impossible values; not used", self.where, key)
             return None
         return table
+
+
+def _checked_scores(scores: pd.DataFrame, where: str) -> pd.DataFrame:
+    """A ``scores.csv`` table after checks: rows, statuses, one row per cell, numbers in range."""
+    if not len(scores):
+        raise InputError(where, "expected a row per cell; the table holds no rows")
+    bad = ~scores["status"].isin(STORED_STATUSES)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(
+            where,
+            f"line {i + 2}: expected status {', '.join(sorted(STORED_STATUSES))}, "
+            f"got {scores['status'].iloc[i]!r}",
+        )
+    dup = scores.duplicated(ID_COLUMNS, keep="first")
+    if dup.any():
+        i = int(np.flatnonzero(dup)[0])
+        cell = ", ".join(f"{c}={scores[c].iloc[i]}" for c in ID_COLUMNS)
+        raise InputError(where, f"line {i + 2}: expected one row per cell; {cell} is there twice")
+    columns = ["seed", "fit_seconds", "fit_peak_mb", "score_seconds"]
+    known = [
+        c for c in scores.columns if measure_stem(c.removesuffix(CI_LOW).removesuffix(CI_HIGH)) in MEASURES
+    ]
+    columns += [c for c in known if c not in ID_COLUMNS + INFO_COLUMNS]
+    for column in [c for c in columns if c in scores]:
+        scores[column] = _checked_column(scores[column], column, where)
+    return scores
+
+
+def _checked_column(raw: pd.Series, column: str, where: str) -> pd.Series:
+    numbers = pd.to_numeric(raw, errors="coerce")
+    values = numbers.to_numpy(dtype=float)
+    low, high = measure_range(column)
+    bad = raw.notna().to_numpy() & ~(np.isfinite(values) & (values >= low - 1e-9) & (values <= high + 1e-9))
+    if column == "seed":
+        bad |= np.isfinite(values) & (values != np.round(values))
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        text = raw.iloc[i]
+        problem = value_problem(column, float(values[i])) if np.isfinite(values[i]) else None
+        raise InputError(
+            where,
+            f"line {i + 2}: expected {'an integer' if column == 'seed' else 'a finite number in range'} "
+            f"in column {column}; {problem or f'got {text!r}'}",
+        )
+    return numbers.astype("int64") if column == "seed" and numbers.notna().all() else numbers

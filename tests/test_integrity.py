@@ -295,7 +295,8 @@ def _verdict_counts(env: Env) -> str:
     if isinstance(rc, str):
         return "traceback"
     last = out.splitlines()[-1]
-    return "correct" if rc == 0 and "26 comparisons" in last else "silently wrong"
+    # 2 configurations x 14 gated measures at k = 5 (the local set, both R_NX areas, the global set)
+    return "correct" if rc == 0 and "28 comparisons" in last else "silently wrong"
 
 
 def _junit_folder(env: Env) -> str:

@@ -366,3 +366,18 @@ def test_expectation_without_a_match_fails(runs):
     )
     (result,) = evaluate_expectations(suite, load_run(runs["baseline"]).scores)
     assert not result.passed and "no configuration" in result.message
+
+
+def test_a_tolerance_flag_on_the_command_line_reaches_the_gate(runs, capsys):
+    # `--tolerance MEASURE=VALUE` is parsed once by the CLI and must pass through check_runs as it is.
+    from harness.cli import main
+
+    code = main(
+        ["check", str(runs["reseeded"]), "--baseline", str(runs["baseline"]), "--tolerance", "stress=0.5"]
+    )
+    out = capsys.readouterr().out
+    assert code == 0 and "PASSED" in out.splitlines()[-1]
+    code = main(
+        ["check", str(runs["reseeded"]), "--baseline", str(runs["baseline"]), "--tolerance", "stress=x%"]
+    )
+    assert code == 2 and "--tolerance" in capsys.readouterr().err

@@ -119,7 +119,8 @@ def parse_tolerances(raw: Any, where: str = "tolerances") -> dict[str, Any]:
             continue
         if key != "default":
             measure_key(key, at, any_k=True)
-        out[key] = _tolerance(value, at)
+        # Entries parsed once already (``parse_tolerance_flags``) pass as they are.
+        out[key] = value if isinstance(value, Tolerance) else _tolerance(value, at)
     return out
 
 

@@ -133,7 +133,12 @@ def test_tsne_beats_random_projection_on_digits():
 QUICK = {"tsne": {"max_iter": 250}, "mds": {"max_iter": 50}}
 
 
-@pytest.mark.parametrize("name", sorted(METHODS))
+# Methods of optional packages are fitted in tests/test_methods_modern.py (slow); an embedding file
+# fits nothing (tests/test_embedding_files.py).
+FITTED_HERE = sorted(m for m, s in METHODS.items() if not s.requires and m != "embedding_file")
+
+
+@pytest.mark.parametrize("name", FITTED_HERE)
 def test_method_fits_with_right_shape_and_is_reproducible(name, small):
     data = Dataset("noise", X=small)
     first = fit_embedding(METHODS[name], data, 2, QUICK.get(name, {}), seed=5)
@@ -142,7 +147,7 @@ def test_method_fits_with_right_shape_and_is_reproducible(name, small):
     np.testing.assert_array_equal(first, again)
 
 
-@pytest.mark.parametrize("name", sorted(n for n, m in METHODS.items() if m.accepts_distances))
+@pytest.mark.parametrize("name", [n for n in FITTED_HERE if METHODS[n].accepts_distances])
 def test_distance_methods_take_a_distance_matrix(name, small):
     data = Dataset("noise_distances", distances=cdist(small, small))
     Y = fit_embedding(METHODS[name], data, 2, QUICK.get(name, {}), seed=1)
@@ -161,6 +166,8 @@ def test_coordinate_methods_refuse_a_distance_matrix(name, small):
 
 def test_builtin_defaults_pass_their_own_checks():
     for name, spec in METHODS.items():
+        if name == "embedding_file":  # its path is required and has no default
+            continue
         assert validate_params({}, spec.params, name) == defaults(name)
 
 

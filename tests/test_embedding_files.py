@@ -103,8 +103,8 @@ def test_a_missing_id_is_refused_naming_it(iris_files):
     shuffled[shuffled.flower != "flower-042"].to_csv(folder / "short.csv", index=False)
     suite = _suite(folder, "- {use: embedding_file, params: {path: short.csv, id_column: flower}}\n")
     s = load_suite(suite)
-    _, refused = plan(s, load_datasets(s))
-    assert len(refused) == 1 and "flower-042" in refused[0].error and "is missing" in refused[0].error
+    with pytest.raises(InputError, match="'flower-042' is missing"):
+        plan(s, load_datasets(s))
 
 
 def test_a_row_count_mismatch_and_a_dimension_mismatch_are_refused(iris_files):
@@ -119,10 +119,17 @@ def test_a_row_count_mismatch_and_a_dimension_mismatch_are_refused(iris_files):
         """,
     )
     s = load_suite(suite)
-    _, refused = plan(s, load_datasets(s))
-    reasons = {r.cell.method: r.error for r in refused}
-    assert "150 rows" in reasons["few"] and "got 100" in reasons["few"]
-    assert "3 coordinate columns" in reasons["three"] and "dimensions: 3" in reasons["three"]
+    with pytest.raises(InputError) as info:
+        plan(s, load_datasets(s))
+    assert (
+        "methods[0] (few)" in str(info.value)
+        and "150 rows" in str(info.value)
+        and "got 100" in str(info.value)
+    )
+    suite = _suite(folder, "- {use: embedding_file, name: three, params: {path: three.npy}}\n")
+    s = load_suite(suite)
+    with pytest.raises(InputError, match=r"3 coordinate columns.*dimensions: 3"):
+        plan(s, load_datasets(s))
 
 
 def test_a_missing_file_is_refused_by_validate(iris_files, capsys):
@@ -257,3 +264,44 @@ def test_the_bundled_suite_scores_the_fleet_exports(tmp_path):
     cells, refused = plan(s, load_datasets(s))
     assert not refused and len(cells) == 3
     assert METHODS["embedding_file"].content_identity is not None
+
+
+def test_one_file_per_seed_through_the_seed_field(iris_files):
+    folder, _, Y = iris_files
+    np.save(folder / "emb_0.npy", Y)
+    np.save(folder / "emb_1.npy", Y[:, ::-1] * 2.0)  # an isometry and a scaling: the same local scores
+    suite = _suite(folder, "- {use: embedding_file, name: per_seed, params: {path: 'emb_{seed}.npy'}}\n")
+    suite.write_text(suite.read_text().replace("seeds: 1", "seeds: 2"))
+    scores = _scores(folder, suite).reset_index().set_index("seed")
+    assert list(scores.index) == [0, 1] and set(scores["status"]) == {"ok"}
+    assert scores.loc[0, "trustworthiness@10"] == pytest.approx(
+        scores.loc[1, "trustworthiness@10"], abs=1e-12
+    )
+    (folder / "emb_1.npy").unlink()
+    with pytest.raises(InputError, match=r"emb_1\.npy: expected an existing file"):
+        s = load_suite(suite)
+        plan(s, load_datasets(s))
+
+
+def test_a_file_matching_no_dataset_stops_the_suite(iris_files, capsys):
+    folder, _, Y = iris_files
+    bad = Y.copy()
+    bad[7, 1] = np.nan
+    np.save(folder / "nan.npy", bad)
+    suite = _suite(folder, "- {use: embedding_file, params: {path: nan.npy}}\n")
+    assert main(["validate", str(suite)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert (
+        "methods[0]" in err and "finite coordinates" in err and "row 8" in err and len(err.splitlines()) == 1
+    )
+
+
+def test_extra_ids_are_named(iris_files):
+    folder, _, _ = iris_files
+    shuffled = pd.read_csv(folder / "shuffled.csv")
+    extra = pd.DataFrame({"flower": ["stranger"], "x": [0.0], "y": [0.0]})
+    pd.concat([shuffled, extra]).to_csv(folder / "extra.csv", index=False)
+    suite = _suite(folder, "- {use: embedding_file, params: {path: extra.csv, id_column: flower}}\n")
+    s = load_suite(suite)
+    with pytest.raises(InputError, match="first 'stranger'"):
+        plan(s, load_datasets(s))

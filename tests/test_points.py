@@ -90,3 +90,32 @@ def test_the_report_shows_where_each_embedding_fails(tmp_path):
     assert "Where each embedding fails" in page and "per-point defects on iris" in page
     assert "worst 5% of points carry" in page and "Mean trustworthiness defect by class" in page
     assert (outcome.run_dir / "figures" / "points_iris.png").is_file()
+
+
+def test_pointwise_gives_each_points_defect_and_counts(roll):
+    from harness.metrics import pointwise
+
+    X, Y = roll
+    table = pointwise(X, Y, k=7)
+    assert list(table.columns) == [
+        "point",
+        "trustworthiness_defect",
+        "continuity_defect",
+        "knn_recall",
+        "intruders",
+        "missing",
+    ]
+    # The mean defect is the measure's defect: 1 - scikit-learn's trustworthiness (Venna and Kaski 2001).
+    assert table["trustworthiness_defect"].mean() == pytest.approx(
+        1 - trustworthiness(X, Y, n_neighbors=7), abs=1e-12
+    )
+    assert table["continuity_defect"].mean() == pytest.approx(
+        1 - trustworthiness(Y, X, n_neighbors=7), abs=1e-12
+    )
+    # Intruders: embedding neighbours outside the data neighbourhood, counted directly with scikit-learn.
+    from sklearn.neighbors import NearestNeighbors
+
+    nx = NearestNeighbors(n_neighbors=8).fit(X).kneighbors(X, return_distance=False)[:, 1:]
+    ny = NearestNeighbors(n_neighbors=8).fit(Y).kneighbors(Y, return_distance=False)[:, 1:]
+    direct = np.array([len(set(b) - set(a)) for a, b in zip(nx, ny)])
+    np.testing.assert_array_equal(table["intruders"].to_numpy(), direct)

@@ -26,7 +26,7 @@ def _arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--obsm", action="append", default=[], metavar="KEY", help="an obsm key of the .h5ad data")
     p.add_argument("--label", metavar="COLUMN", help="column (or obs column) holding class labels")
     p.add_argument("--id-column", metavar="COLUMN", help="column of row ids in the data and embedding tables")
-    p.add_argument("--k", type=int, action="append", metavar="K", help="neighbourhood size (repeatable)")
+    p.add_argument("--k", action="append", metavar="K", help="neighbourhood sizes: 10 or 10,30 (repeatable)")
     p.add_argument("--out", default="results", metavar="DIR", help="root folder of runs (default: results)")
     p.add_argument("--no-report", action="store_true", help="skip the HTML report and figures at the end")
     p.add_argument("--quiet", action="store_true", help="no tables, only the last line")
@@ -50,7 +50,7 @@ def _dataset_entry(args: argparse.Namespace) -> dict[str, Any]:
         if args.id_column:
             raise InputError("--id-column", "expected only for tables; an .h5ad file's ids are its obs_names")
         params = {"path": str(data.resolve())} | ({"label": args.label} if args.label else {})
-        return {"use": "h5ad", "name": _entry_name(data.stem, set()), "params": params}
+        return {"use": "anndata", "name": _entry_name(data.stem, set()), "params": params}
     if suffix not in (*_TABLES, ".npy"):
         raise InputError(args.data, f"a table ({', '.join(_TABLES)}, .npy) or an .h5ad file; got '{suffix}'")
     params = {"path": str(data.resolve())}
@@ -82,6 +82,17 @@ def _method_entries(args: argparse.Namespace) -> list[dict[str, Any]]:
     return entries
 
 
+def _ks(flags: list[str]) -> list[int]:
+    ks: set[int] = set()
+    for flag in flags:
+        for part in flag.split(","):
+            try:
+                ks.add(int(part))
+            except ValueError:
+                raise InputError("--k", f"expected whole numbers such as 10 or 10,30, got {flag!r}") from None
+    return sorted(ks)
+
+
 def score_suite_text(args: argparse.Namespace) -> tuple[str, int]:
     """The suite that scores the given files: one dataset, one ``embedding_file`` entry per file.
 
@@ -108,7 +119,7 @@ def score_suite_text(args: argparse.Namespace) -> tuple[str, int]:
         "methods": methods,
     }
     if args.k:
-        doc["measures"] = {"k": sorted(set(args.k))}
+        doc["measures"] = {"k": _ks(args.k)}
     return yaml.safe_dump(doc, sort_keys=False), doc["dimensions"]
 
 

@@ -26,16 +26,19 @@ def _dense(matrix: Any) -> np.ndarray:
 
 
 @register_dataset(
-    "h5ad",
+    "anndata",
     params=(
         Param("path", str, None, "the AnnData .h5ad file"),
         Param("label", str, None, "obs column holding class labels (optional)"),
-        Param("use_rep", str, None, "obsm key to use as the data instead of X (e.g. X_pca)"),
+        Param("layer", str, None, "a layer to use as the data instead of X"),
+        Param("use_rep", str, None, "an obsm key to use as the data instead of X (e.g. X_pca)"),
     ),
     description="observations of an AnnData .h5ad file (needs the anndata extra)",
     source="user file",
 )
-def h5ad(path: str | None = None, label: str | None = None, use_rep: str | None = None) -> Dataset:
+def anndata_file(
+    path: str | None = None, label: str | None = None, layer: str | None = None, use_rep: str | None = None
+) -> Dataset:
     """Load the data matrix, labels and row ids of an ``.h5ad`` file.
 
     Parameters
@@ -44,6 +47,8 @@ def h5ad(path: str | None = None, label: str | None = None, use_rep: str | None 
         The file.
     label : str, optional
         An ``obs`` column of class labels.
+    layer : str, optional
+        A ``layers`` entry whose matrix is the data space (default: ``X``).
     use_rep : str, optional
         An ``obsm`` key whose array is the data space (default: ``X``).
 
@@ -53,7 +58,7 @@ def h5ad(path: str | None = None, label: str | None = None, use_rep: str | None 
         ``X`` (float64), ``labels`` if asked; ``info["row_ids"]`` holds ``obs_names``.
     """
     if path is None:
-        raise InputError("h5ad.path", "the path of an .h5ad file (required)")
+        raise InputError("anndata.path", "the path of an .h5ad file (required)")
     try:
         import anndata
     except ImportError:
@@ -62,7 +67,14 @@ def h5ad(path: str | None = None, label: str | None = None, use_rep: str | None 
         adata = anndata.read_h5ad(path)
     except (OSError, ValueError, KeyError) as exc:
         raise InputError(path, f"a readable AnnData .h5ad file ({type(exc).__name__})") from None
-    if use_rep is not None:
+    if layer is not None and use_rep is not None:
+        raise InputError(f"{path}", "either 'layer' or 'use_rep' as the data, not both")
+    if layer is not None:
+        if layer not in adata.layers:
+            keys = ", ".join(adata.layers.keys()) or "none"
+            raise InputError(f"{path}, layer '{layer}'", f"a layer of the file (it has: {keys})")
+        raw = _dense(adata.layers[layer])
+    elif use_rep is not None:
         if use_rep not in adata.obsm:
             keys = ", ".join(adata.obsm.keys()) or "none"
             raise InputError(f"{path}, obsm '{use_rep}'", f"an obsm key of the file (it has: {keys})")
@@ -82,14 +94,14 @@ def h5ad(path: str | None = None, label: str | None = None, use_rep: str | None 
             )
         labels = np.asarray(adata.obs[label].astype(str), dtype=str)
     return Dataset(
-        name="h5ad",
+        name="anndata",
         X=X,
         labels=labels,
         info={
             "source": str(path),
             "format": "h5ad",
             "row_ids": np.asarray(adata.obs_names, dtype=str),
-            "representation": use_rep or "X",
+            "representation": use_rep or (f"layer {layer}" if layer else "X"),
             "label": label,
         },
     )

@@ -44,12 +44,14 @@ class MethodSpec:
         ``(module, distribution)`` of an optional package the method needs
         (imported only when it is fitted); empty for methods of the base install.
     content_identity : callable, optional
-        ``content_identity(params) -> str`` for methods whose output depends on
+        ``content_identity(params, seed) -> str`` for methods whose output depends on
         something outside their parameters (a file's bytes); the cache key
         includes it.
     check_dataset : callable, optional
-        ``check_dataset(params, dataset, dimensions) -> str``: a reason the
+        ``check_dataset(params, dataset, dimensions, seeds) -> str``: a reason the
         method cannot run on that dataset ("" when it can), found when planning.
+        A method refused this way on every dataset of a suite stops the suite
+        with that reason (it is bound to data, like a stored embedding).
     """
 
     name: str
@@ -63,7 +65,7 @@ class MethodSpec:
     source: str = ""
     places_new_points: bool = False
     requires: tuple[str, ...] = ()
-    content_identity: Callable[[dict[str, Any]], str] | None = None
+    content_identity: Callable[[dict[str, Any], int], str] | None = None
     check_dataset: Callable[..., str] | None = None
 
     def missing_package(self) -> str | None:
@@ -105,7 +107,7 @@ def register_method(
     source: str = "",
     places_new_points: bool = False,
     requires: tuple[str, ...] = (),
-    content_identity: Callable[[dict[str, Any]], str] | None = None,
+    content_identity: Callable[[dict[str, Any], int], str] | None = None,
     check_dataset: Callable[..., str] | None = None,
 ) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
     """Decorator that adds an estimator builder to :data:`METHODS`."""

@@ -27,11 +27,20 @@ _SUFFIXES = (".npy", ".csv", ".tsv", ".tab", ".parquet", ".pq", ".h5ad")
 ANNDATA_HINT = "pip install 'foldbench[anndata]'"
 
 
+#: Written in a path, stands for the cell's seed: one stored embedding per seed.
+SEED_FIELD = "{seed}"
+
+
+def seed_path(path: str, seed: int) -> str:
+    """The file of one seed: ``{seed}`` in ``path`` replaced by the seed (paths without it as they are)."""
+    return path.replace(SEED_FIELD, str(seed))
+
+
 def _readable_file(value: Any) -> str | None:
     path = Path(str(value))
     if path.suffix.lower() not in _SUFFIXES:
         return f"a file ending in {', '.join(_SUFFIXES)}"
-    if not path.is_file():
+    if SEED_FIELD not in str(value) and not path.is_file():
         return "an existing file (not found)"
     return None
 
@@ -88,7 +97,13 @@ def _coordinates(arr: Any, where: str) -> np.ndarray:
         arr = arr.reshape(-1, 1)
     if arr.ndim != 2:
         raise InputError(where, f"a 2-D array of coordinates (rows x dimensions), got shape {arr.shape}")
-    return np.ascontiguousarray(arr, dtype=np.float64)
+    out = np.ascontiguousarray(arr, dtype=np.float64)
+    bad = np.flatnonzero(~np.isfinite(out).all(axis=1))
+    if bad.size:
+        raise InputError(
+            where, f"finite coordinates; {bad.size} rows hold NaN or inf, first at row {int(bad[0]) + 1}"
+        )
+    return out
 
 
 def _read_table(path: str, columns: list[str] | None, id_column: str | None) -> tuple[np.ndarray, Any]:
@@ -160,8 +175,12 @@ def align_rows(Y: np.ndarray, ids: np.ndarray | None, dataset: Dataset, where: s
                 + (f" (and {len(missing) - 1} more)" if len(missing) > 1 else ""),
             )
         if len(ids) != len(row_ids):
+            known = set(row_ids)
+            extra = [v for v in ids if v not in known]
             raise InputError(
-                where, f"{len(row_ids)} rows, one per id of dataset '{dataset.name}'; got {len(ids)}"
+                where,
+                f"{len(row_ids)} rows, one per id of dataset '{dataset.name}'; got {len(ids)}, "
+                f"with ids the dataset does not have, first {extra[0]!r}",
             )
         return Y[[position[v] for v in row_ids]]
     if Y.shape[0] != dataset.n:
@@ -194,29 +213,38 @@ class EmbeddingFile:
         return align_rows(Y, ids, self.dataset, self.path)
 
 
-def check_dataset(params: dict[str, Any], dataset: Dataset, dimensions: int) -> str:
-    """Why the file cannot be scored against ``dataset`` ("" when it can); read when planning."""
-    try:
-        Y, ids = read_embedding(
-            str(params["path"]),
-            columns=params.get("columns"),
-            id_column=params.get("id_column"),
-            obsm=params.get("obsm"),
-        )
-        align_rows(Y, ids, dataset, str(params["path"]))
-    except InputError as err:
-        return str(err)
-    if Y.shape[1] != dimensions:
-        return (
-            f"{params['path']} holds {Y.shape[1]} coordinate columns but the suite asks for "
-            f"{dimensions} dimensions; set 'dimensions: {Y.shape[1]}' or pick columns with 'columns'"
-        )
+def check_dataset(
+    params: dict[str, Any], dataset: Dataset, dimensions: int, seeds: tuple[int, ...] = (0,)
+) -> str:
+    """Why the file(s) cannot be scored against ``dataset`` ("" when they can); read when planning.
+
+    With ``{seed}`` in the path, the file of every seed is read.
+    """
+    paths = dict.fromkeys(seed_path(str(params["path"]), s) for s in seeds)
+    for path in paths:
+        if not Path(path).is_file():
+            return f"{path}: expected an existing file (not found)"
+        try:
+            Y, ids = read_embedding(
+                path,
+                columns=params.get("columns"),
+                id_column=params.get("id_column"),
+                obsm=params.get("obsm"),
+            )
+            align_rows(Y, ids, dataset, path)
+        except InputError as err:
+            return str(err)
+        if Y.shape[1] != dimensions:
+            return (
+                f"{path} holds {Y.shape[1]} coordinate columns but the suite asks for "
+                f"{dimensions} dimensions; set 'dimensions: {Y.shape[1]}' or pick columns with 'columns'"
+            )
     return ""
 
 
-def content_identity(params: dict[str, Any]) -> str:
-    """What the cache key adds for an embedding file: its bytes' SHA-256."""
-    return file_sha256(str(params["path"]))
+def content_identity(params: dict[str, Any], seed: int) -> str:
+    """What the cache key adds for an embedding file: the SHA-256 of the seed's file."""
+    return file_sha256(seed_path(str(params["path"]), seed))
 
 
 @register_method(
@@ -247,5 +275,8 @@ def build_embedding_file(
     id_column: str | None,
     obsm: str | None,
 ) -> EmbeddingFile:
-    """Read the file at fit time; the suite's ``dimensions`` must equal the file's columns."""
-    return EmbeddingFile(path, columns, id_column, obsm)
+    """Read the file at fit time (the seed's file when the path holds ``{seed}``).
+
+    The suite's ``dimensions`` must equal the file's columns.
+    """
+    return EmbeddingFile(seed_path(path, seed), columns, id_column, obsm)

@@ -43,6 +43,7 @@ __all__ = [
     "higher_is_better",
     "knn_overlap",
     "measure_stem",
+    "pointwise",
     "score",
 ]
 
@@ -295,6 +296,46 @@ def score(
     big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
     curve = pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})
     return MeasureResult(values, intervals, frozenset(intervals), curve, _points(local.terms, queries, ks))
+
+
+def pointwise(X: object, Y: object, k: int = 10, metric: str = "euclidean") -> pd.DataFrame:
+    """Where an embedding fails: one row per point, exact (every point is a query).
+
+    Parameters
+    ----------
+    X : array-like of shape (n, d), or (n, n) with ``metric="precomputed"``
+    Y : array-like of shape (n, q)
+    k : int
+        Neighbourhood size, ``1 <= k < n/2``.
+    metric : {"euclidean", "precomputed"}
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``point``; ``trustworthiness_defect`` and ``continuity_defect``: the
+        point's rank penalty of intruders (embedding neighbours from outside its
+        data neighbourhood) and of missing neighbours (data neighbours pushed
+        out), normalised so that their mean is ``1 - trustworthiness@k`` and
+        ``1 - continuity@k`` (Venna and Kaski 2001); ``knn_recall``;
+        ``intruders`` and ``missing``: how many of its k neighbours are new in
+        the embedding, and how many of its data neighbours are lost (equal
+        counts, as both neighbourhoods hold k points).
+    """
+    result = score(X, Y, ks=[k], metric=metric, pair_sample_above=4, n_pairs=40)
+    pts = result.points
+    assert pts is not None
+    recall = pts[f"knn_recall@{k}"].to_numpy()
+    lost = np.rint(k * (1.0 - recall)).astype(np.int64)
+    return pd.DataFrame(
+        {
+            "point": pts["point"].to_numpy(),
+            "trustworthiness_defect": 1.0 - pts[f"trustworthiness@{k}"].to_numpy(),
+            "continuity_defect": 1.0 - pts[f"continuity@{k}"].to_numpy(),
+            "knn_recall": recall,
+            "intruders": lost,
+            "missing": lost,
+        }
+    )
 
 
 #: Per-point terms kept in a cell's point table (where each point fails, not only how much).

@@ -98,7 +98,7 @@ def cache_key(cell: Cell) -> str:
     }
     spec = METHODS.get(cell.use)
     if spec is not None and spec.content_identity is not None:
-        doc["content"] = spec.content_identity(cell.params_dict())
+        doc["content"] = spec.content_identity(cell.params_dict(), cell.seed)
     package = _method_package(cell.use)
     if package is not None:
         # Only methods from optional packages carry this, so base-install keys stay as they were.

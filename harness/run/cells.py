@@ -12,6 +12,7 @@ import pandas as pd
 
 from ..config import CellStatus
 from ..datasets import Dataset
+from ..errors import InputError
 from ..methods import MethodSpec, get_method_spec
 from ..suite import Suite
 from ..text import params_text
@@ -112,14 +113,21 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
     """
     cells: list[Cell] = []
     refused: list[CellResult] = []
+    unmatched: dict[
+        int, str
+    ] = {}  # data-bound methods (embedding files) and the last reason they fit nowhere
     for d in suite.datasets:
         ds = datasets[d.name]
         fp = ds.fingerprint()
-        for m in suite.methods:
+        for i, m in enumerate(suite.methods):
             spec = get_method_spec(m.use, roots=suite.plugin_roots)
             reason = _refusal(spec, ds, suite.run.quadratic_limit)
             if not reason and spec.check_dataset is not None:
-                reason = spec.check_dataset(dict(m.params), ds, suite.dimensions)
+                reason = spec.check_dataset(dict(m.params), ds, suite.dimensions, suite.seeds)
+                if reason:
+                    unmatched.setdefault(i, reason)
+                else:
+                    unmatched[i] = ""
             for point in m.grid_points():
                 for seed in suite.seeds:
                     cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)
@@ -127,6 +135,10 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
                         refused.append(CellResult(cell, CellStatus.SKIPPED, reason))
                     else:
                         cells.append(cell)
+    for i, reason in unmatched.items():
+        if reason:
+            # A stored embedding that matches no dataset of the suite is a mistake, not a skip.
+            raise InputError(f"{suite.path}: methods[{i}] ({suite.methods[i].name})", reason)
     return cells, refused
 
 

@@ -36,7 +36,7 @@ def test_declared_params_match_loader_signature(name):
 
 
 @pytest.mark.parametrize(
-    "name", [n for n in sorted(DATASETS) if n not in ("table", "distance_matrix", "h5ad")]
+    "name", [n for n in sorted(DATASETS) if n not in ("table", "distance_matrix", "anndata")]
 )
 def test_defaults_load_with_registry_name(name):
     ds = load_dataset(name, validate_params({}, DATASETS[name].params, name))

@@ -26,7 +26,7 @@ from ..methods import METHODS
 from ..suite import Suite, load_datasets, load_suite
 from .backends import Execution, execute
 from .cache import EmbeddingCache
-from .cells import Cell, CellResult, plan
+from .cells import Cell, CellResult, plan, seed_copies
 from .folder import RunFolder, scores_frame
 from .lock import folder_lock
 from .manifest import environment
@@ -120,6 +120,7 @@ def execute_suite(
     isolate: bool = True,
     progress: ProgressHook | None = None,
     hold: ExitStack | None = None,
+    share_seed_free: bool = True,
 ) -> ExecutedRun:
     """Fit and score every cell of a suite that is not already done, into a run folder.
 
@@ -128,7 +129,10 @@ def execute_suite(
     with ``hold`` the lock is entered into that stack instead and outlives the
     call (the command line keeps it while it writes the report).  Ctrl-C and
     SIGTERM stop the run cleanly: running cells are stopped, finished ones and
-    the tables are stored.
+    the tables are stored.  With ``share_seed_free`` (the default) a method
+    whose output does not depend on the seed is fitted once per dataset and
+    parameter point; its other seeds are stored as verified copies
+    (:func:`~harness.run.cells.seed_copies`, :meth:`RunFolder.write_copy`).
 
     Returns
     -------
@@ -162,16 +166,26 @@ def execute_suite(
             counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
             rows = {name: d.n for name, d in datasets.items()}
             todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows)
-            results = execute(
-                todo,
-                datasets,
-                suite.scoring,
-                replace(execution, log_dir=str(folder.path / "cells")),
-                backend=backend_name,
-                cache=cache,
-                stop=stop,
-            )
-            _store_results(results, suite, folder, cache, counter)
+            copies = seed_copies(cells, suite) if share_seed_free else {}
+            todo = _copy_finished(todo, copies, folder, counter)
+            deferred = [c for c in todo if c.key in copies]
+            for batch in ([c for c in todo if c.key not in copies], deferred):
+                if stop.is_set():
+                    break
+                if batch is deferred:  # copies of cells computed just now; those that failed run themselves
+                    batch = _copy_finished(batch, copies, folder, counter)
+                if not batch:
+                    continue
+                results = execute(
+                    batch,
+                    datasets,
+                    suite.scoring,
+                    replace(execution, log_dir=str(folder.path / "cells")),
+                    backend=backend_name,
+                    cache=cache,
+                    stop=stop,
+                )
+                _store_results(results, suite, folder, cache, counter)
             # Stopped before the first cell was stored, a folder still gets its (empty) table.
             folder.write_table("scores.csv", folder.scores if counter.done else scores_frame([]))
         if not stop.is_set():
@@ -211,6 +225,21 @@ def _store_known(
     todo = [c for c in cells if c.key not in done_keys]
     log.info("running %d cells (%d already done) into %s", len(todo), counter.done, folder.path)
     return _from_cache(todo, suite, folder, cache, counter, rows)
+
+
+def _copy_finished(
+    todo: list[Cell], copies: dict[str, Cell], folder: RunFolder, counter: _Progress
+) -> list[Cell]:
+    """Store as copies the cells whose seed-free source is finished ok; return the cells left."""
+    left = []
+    for cell in todo:
+        source = copies.get(cell.key)
+        result = folder.write_copy(source.key, cell) if source is not None else None
+        if result is None:
+            left.append(cell)
+        else:
+            counter.stored(result)
+    return left
 
 
 def _store_results(

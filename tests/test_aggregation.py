@@ -37,7 +37,11 @@ MEASURE_CELL = re.compile(
 
 
 def spread_text(sd: float) -> str:
-    """How a seed spread is written (documented in docs/reports.md): never as ``± 0.000``."""
+    """How a seed spread is written (documented in docs/reports.md): never as ``± 0.000``.
+
+    No spread (one seed, or one fit of a seed-free method copied to every seed) writes none."""
+    if np.isnan(sd):
+        return ""
     if sd == 0:
         return " (seeds agree)"
     if round(sd, 3) == 0:

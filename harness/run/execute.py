@@ -165,15 +165,15 @@ def execute_suite(
         with _stop_on_signals(stop):
             counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
             rows = {name: d.n for name, d in datasets.items()}
-            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows)
             copies = seed_copies(cells, suite) if share_seed_free else {}
-            todo = _copy_finished(todo, copies, folder, counter)
+            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows, copies)
+            todo = _copy_finished(todo, copies, folder, counter, _cache_writer(cache, suite))
             deferred = [c for c in todo if c.key in copies]
             for batch in ([c for c in todo if c.key not in copies], deferred):
                 if stop.is_set():
                     break
                 if batch is deferred:  # copies of cells computed just now; those that failed run themselves
-                    batch = _copy_finished(batch, copies, folder, counter)
+                    batch = _copy_finished(batch, copies, folder, counter, _cache_writer(cache, suite))
                 if not batch:
                     continue
                 results = execute(
@@ -213,10 +213,12 @@ def _store_known(
     cache: EmbeddingCache | None,
     counter: _Progress,
     rows: dict[str, int],
+    copies: dict[str, Cell],
 ) -> list[Cell]:
     """Store the refused cells and those the cache has finished; return the cells left to compute.
 
     ``rows`` gives each dataset's size, so that a cached embedding of another size is not used.
+    Cells in ``copies`` are not looked up: they are copied from their source, and so marked.
     """
     for result in refused:
         if result.cell.key not in done_keys:
@@ -224,13 +226,29 @@ def _store_known(
             counter.stored(result)
     todo = [c for c in cells if c.key not in done_keys]
     log.info("running %d cells (%d already done) into %s", len(todo), counter.done, folder.path)
-    return _from_cache(todo, suite, folder, cache, counter, rows)
+    left = _from_cache([c for c in todo if c.key not in copies], suite, folder, cache, counter, rows)
+    return left + [c for c in todo if c.key in copies]
+
+
+def _cache_writer(cache: EmbeddingCache | None, suite: Suite) -> Callable[[CellResult], None]:
+    """Put an ok result into the cache (nothing without one)."""
+
+    def put(result: CellResult) -> None:
+        if cache is not None and result.status == CellStatus.OK:
+            cache.put_result(result, suite.scoring)
+
+    return put
 
 
 def _copy_finished(
-    todo: list[Cell], copies: dict[str, Cell], folder: RunFolder, counter: _Progress
+    todo: list[Cell],
+    copies: dict[str, Cell],
+    folder: RunFolder,
+    counter: _Progress,
+    keep: Callable[[CellResult], None],
 ) -> list[Cell]:
-    """Store as copies the cells whose seed-free source is finished ok; return the cells left."""
+    """Store as copies the cells whose seed-free source is finished ok (``keep`` gets each, for the
+    cache); return the cells left."""
     left = []
     for cell in todo:
         source = copies.get(cell.key)
@@ -238,6 +256,7 @@ def _copy_finished(
         if result is None:
             left.append(cell)
         else:
+            keep(result)
             counter.stored(result)
     return left
 

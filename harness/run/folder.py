@@ -406,7 +406,7 @@ class RunFolder:
         Returns
         -------
         CellResult or None
-            What was stored (status and values), or ``None`` when the source is
+            What was stored, read back verified, or ``None`` when the source is
             not an intact ok cell (the caller computes the cell instead).
         """
         record = self._record_of(source)
@@ -428,8 +428,24 @@ class RunFolder:
         doc["finished"] = datetime.now(UTC).isoformat(timespec="seconds")
         atomic.write_json(self.path / "cells" / f"{cell.key}.json", seal(doc))
         self._forget()
-        status = CellStatus(record["status"])
-        return CellResult(cell, status, record["error"], values=record["values"], copy_of=source)
+        return CellResult(
+            cell,
+            CellStatus(record["status"]),
+            record["error"],
+            record["detail"],
+            embedding=self.embedding(cell.key),
+            values=dict(record["values"]),
+            intervals={k: (float(v[0]), float(v[1])) for k, v in (record.get("intervals") or {}).items()},
+            estimated=tuple(record["estimated"]),
+            curve=self.curve(cell.key),
+            points=self.points(cell.key),
+            fit_seconds=record["fit_seconds"],
+            fit_peak_mb=record["fit_peak_mb"],
+            score_seconds=record["score_seconds"],
+            from_cache=record["from_cache"],
+            copy_of=source,
+            warnings=tuple(record["warnings"]),
+        )
 
     # ------------------------------------------------------------ reading
 

@@ -121,6 +121,12 @@ def mean_sd(mean: Any, sd: Any, digits: int = 3) -> str:
     return f"{mean:.{digits}f} ± {sd:.{digits}f}"
 
 
+def seeds_text(row: Any) -> str:
+    """``3/3`` (ok seeds of those meant to run), or ``3/3 deterministic`` when one fit served every seed."""
+    ok, failed = int(row["seeds_ok"]), int(row["seeds_failed"])
+    return f"{ok}/{ok + failed}" + (" deterministic" if bool(row.get("deterministic", False)) else "")
+
+
 def interval_text(low: Any, high: Any, digits: int = 3) -> str | None:
     """``[0.905, 0.919]``; ``None`` when unknown or when its ends would print alike.
 

@@ -37,7 +37,11 @@ MEASURE_CELL = re.compile(
 
 
 def spread_text(sd: float) -> str:
-    """How a seed spread is written (documented in docs/reports.md): never as ``± 0.000``."""
+    """How a seed spread is written (documented in docs/reports.md): never as ``± 0.000``.
+
+    No spread (one seed, or one fit of a seed-free method copied to every seed) writes none."""
+    if np.isnan(sd):
+        return ""
     if sd == 0:
         return " (seeds agree)"
     if round(sd, 3) == 0:
@@ -172,9 +176,12 @@ def reference(scores: pd.DataFrame) -> pd.DataFrame:
     rows = []
     for (dataset, method, params), g in ok.groupby(["dataset", "method", "params"], sort=False):
         row = {"dataset": dataset, "method": method, "params": params}
+        # a seed-free method fitted once: its other seeds are copies, and one fit has no seed sd
+        one_fit = len(g) > 1 and (g["copy_of"].fillna("") != "").sum() == len(g) - 1
         for m in [*RANK_BY, "fit_seconds"]:
             v = g[m].to_numpy(float)
-            row[m], row[f"{m}_sd"] = np.mean(v), np.std(v, ddof=1)
+            no_sd = one_fit and m != "fit_seconds"
+            row[m], row[f"{m}_sd"] = np.mean(v), np.nan if no_sd else np.std(v, ddof=1)
         rows.append(row)
     ref = pd.DataFrame(rows)
     # all three ranked measures are higher-is-better: rank the negated means, 1 = best

@@ -32,6 +32,15 @@ def measure_columns(scores: pd.DataFrame) -> list[str]:
     ]
 
 
+def _one_fit(ok: pd.DataFrame) -> bool:
+    """The ok seeds are one fit and its copies (a seed-free method fitted once)."""
+    if len(ok) < 2 or "copy_of" not in ok:
+        return False
+    copies = ok["copy_of"].fillna("").astype(str)
+    fitted = set(ok.loc[copies == "", "key"].astype(str)) if "key" in ok else set()
+    return len(fitted) == 1 and set(copies[copies != ""]) <= fitted
+
+
 def aggregate(scores: pd.DataFrame, *, level: float = 0.95) -> pd.DataFrame:
     """Mean, spread and interval of every measure over the seeds of each configuration.
 
@@ -53,7 +62,10 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95) -> pd.DataFrame:
         with fewer than two seeds).  A percentile bootstrap of 3 to 10 seed
         values covers the true mean far less often than it claims (about 74%
         at 3 seeds for a "95%" interval); the t interval holds its level for
-        normal seed scores at any number of seeds.
+        normal seed scores at any number of seeds.  ``deterministic`` is true
+        when the method was fitted once and its other seeds are copies of that
+        fit (``copy_of`` in the scores); its quality measures then have no seed
+        spread or interval (NaN), not a spread of 0 over copies.
     """
     cols = measure_columns(scores)
     rows = []
@@ -62,14 +74,17 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95) -> pd.DataFrame:
         ok = group[group["status"] == CellStatus.OK]
         row["seeds_ok"] = len(ok)
         row["seeds_failed"] = int(group["status"].map(is_failure).sum())
+        row["deterministic"] = deterministic = _one_fit(ok)
         for m in cols:
             values = pd.to_numeric(ok[m], errors="coerce").to_numpy(dtype=float)
             finite = values[np.isfinite(values)]
             row[m] = float(finite.mean()) if finite.size else math.nan
-            row[f"{m}_sd"] = float(finite.std(ddof=1)) if finite.size > 1 else math.nan
-            row[f"{m}_lo"], row[f"{m}_hi"] = t_interval(finite, level=level)
+            spread = finite.size > 1 and not (deterministic and m not in COST_COLUMNS)
+            row[f"{m}_sd"] = float(finite.std(ddof=1)) if spread else math.nan
+            bounds = t_interval(finite, level=level) if spread else (math.nan, math.nan)
+            row[f"{m}_lo"], row[f"{m}_hi"] = bounds
         rows.append(row)
-    columns = [*CONFIG, "seeds_ok", "seeds_failed"] + [
+    columns = [*CONFIG, "seeds_ok", "seeds_failed", "deterministic"] + [
         f"{m}{s}" for m in cols for s in ("", "_sd", "_lo", "_hi")
     ]
     return pd.DataFrame(rows, columns=columns)

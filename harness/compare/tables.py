@@ -7,7 +7,7 @@ from collections.abc import Mapping, Sequence
 import pandas as pd
 
 from ..metrics import higher_is_better
-from ..text import markdown_table, mean_sd, method_label, number
+from ..text import markdown_table, mean_sd, method_label, number, seeds_text
 from .rank import Ranking
 
 
@@ -34,7 +34,7 @@ def dataset_table(group: pd.DataFrame, rank_by: Mapping[str, float]) -> str:
             + [mean_sd(r[c], r.get(f"{c}_sd")) for c in cols]
             + [
                 number(r.get("fit_seconds"), 2),
-                f"{int(r['seeds_ok'])}/{int(r['seeds_ok'] + r['seeds_failed'])}",
+                seeds_text(r),
             ]
         )
     return markdown_table(rows, headers, [True, False, False, True] + [True] * len(cols) + [True, True])

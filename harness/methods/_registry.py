@@ -52,6 +52,10 @@ class MethodSpec:
         method cannot run on that dataset ("" when it can), found when planning.
         A method refused this way on every dataset of a suite stops the suite
         with that reason (it is bound to data, like a stored embedding).
+    seed_free : callable, optional
+        ``seed_free(params) -> bool``: the output does not depend on the seed for
+        these parameters (checked by fitting two seeds and comparing bytes).  When
+        not given, a method that is not ``randomized`` is seed-free.
     """
 
     name: str
@@ -67,6 +71,13 @@ class MethodSpec:
     requires: tuple[str, ...] = ()
     content_identity: Callable[[dict[str, Any], int], str] | None = None
     check_dataset: Callable[..., str] | None = None
+    seed_free: Callable[[dict[str, Any]], bool] | None = None
+
+    def ignores_seed(self, params: dict[str, Any]) -> bool:
+        """Whether a fit with ``params`` gives the same bytes for every seed (fit once, copy the rest)."""
+        if self.seed_free is not None:
+            return bool(self.seed_free(params))
+        return not self.randomized
 
     def missing_package(self) -> str | None:
         """The distribution to install when the method's package is absent, else ``None``."""
@@ -109,6 +120,7 @@ def register_method(
     requires: tuple[str, ...] = (),
     content_identity: Callable[[dict[str, Any], int], str] | None = None,
     check_dataset: Callable[..., str] | None = None,
+    seed_free: Callable[[dict[str, Any]], bool] | None = None,
 ) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
     """Decorator that adds an estimator builder to :data:`METHODS`."""
 
@@ -127,6 +139,7 @@ def register_method(
             requires,
             content_identity,
             check_dataset,
+            seed_free,
         )
         return fn
 

@@ -117,6 +117,9 @@ def build_classical_mds(n_components: int, seed: int, precomputed: bool) -> Clas
     accepts_distances=True,
     quadratic_memory=True,
     source="Kruskal 1964; de Leeuw 1977 (scikit-learn MDS)",
+    # A classical-scaling start leaves scikit-learn's SMACOF nothing random: two seeds gave
+    # byte-identical embeddings on every quickstart dataset.
+    seed_free=lambda params: params.get("init", "classical_mds") == "classical_mds",
 )
 def build_mds(
     n_components: int, seed: int, precomputed: bool, *, init: str, n_init: int, max_iter: int, eps: float
@@ -181,6 +184,9 @@ def build_sammon(
     accepts_distances=True,
     randomized=False,
     quadratic_memory=True,
+    # Not fitted once for all seeds: scikit-learn's ARPACK start vector comes from the unseeded
+    # global generator, so two processes give embeddings that differ in the last bits.
+    seed_free=lambda params: False,
     source="Tenenbaum, de Silva and Langford 2000 (scikit-learn Isomap)",
 )
 def build_isomap(n_components: int, seed: int, precomputed: bool, *, n_neighbors: int) -> Isomap:

@@ -20,7 +20,7 @@ import pandas as pd
 from ..compare.tables import arrow
 from ..datasets import Dataset
 from ..metrics import higher_is_better
-from ..text import interval_text, mean_sd, number
+from ..text import interval_text, mean_sd, number, seeds_text
 from . import palette
 from .analysis import Analysis, is_estimated
 from .pointwise import PointDefects, concentration_sentence, defect_by_class
@@ -93,7 +93,7 @@ def dataset_html(analysis: Analysis, frame: pd.DataFrame, columns: Sequence[str]
         rows.append(
             [_num(r["place"], 0), _e(name), _e(r["params"]), _num(r["mean_rank"], 2)]
             + [_measure_cell(analysis, r, c) for c in cols]
-            + [f"{int(r['seeds_ok'])}/{int(r['seeds_ok'] + r['seeds_failed'])}"]
+            + [seeds_text(r)]
         )
         best.append([False] * 4 + [bool(marks[c].iloc[pos]) for c in cols] + [False])
     return table(headers, rows, [True, False, False, True] + [True] * len(cols) + [True], best)

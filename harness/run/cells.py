@@ -68,7 +68,9 @@ class CellResult:
     """What computing a cell produced; plain data handed from a backend to the run folder.
 
     ``status`` is a :class:`~harness.config.CellStatus`; ``interrupted`` is never
-    stored, so such a cell is computed again on resume.
+    stored, so such a cell is computed again on resume.  ``copy_of`` is the key
+    of the cell whose stored result this one repeats (a seed-free method fitted
+    once for all seeds), ``""`` when the cell was computed.
     """
 
     cell: Cell
@@ -85,6 +87,7 @@ class CellResult:
     fit_peak_mb: float = float("nan")
     score_seconds: float = float("nan")
     from_cache: bool = False
+    copy_of: str = ""
     warnings: tuple[str, ...] = ()
 
 
@@ -140,6 +143,27 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
             # A stored embedding that matches no dataset of the suite is a mistake, not a skip.
             raise InputError(f"{suite.path}: methods[{i}] ({suite.methods[i].name})", reason)
     return cells, refused
+
+
+def seed_copies(cells: list[Cell], suite: Suite) -> dict[str, Cell]:
+    """The cells that repeat another cell's fit: key of the copy -> the cell fitted for it.
+
+    A method whose output does not depend on the seed for its parameters
+    (:meth:`~harness.methods.MethodSpec.ignores_seed`) is fitted and scored once,
+    for its first seed in plan order; the suite scores every cell with the same
+    scoring seed, so its other seeds' results are the same bytes.
+    """
+    first: dict[tuple[Any, ...], Cell] = {}
+    copies: dict[str, Cell] = {}
+    for cell in cells:
+        spec = get_method_spec(cell.use, roots=suite.plugin_roots)
+        if not spec.ignores_seed(cell.params_dict()):
+            continue
+        config = (cell.dataset, cell.method, cell.use, cell.params, cell.dimensions, cell.data_fingerprint)
+        source = first.setdefault(config, cell)
+        if source is not cell:
+            copies[cell.key] = source
+    return copies
 
 
 def _refusal(spec: MethodSpec, ds: Dataset, quadratic_limit: int) -> str:

@@ -26,7 +26,7 @@ from ..methods import METHODS
 from ..suite import Suite, load_datasets, load_suite
 from .backends import Execution, execute
 from .cache import EmbeddingCache
-from .cells import Cell, CellResult, plan
+from .cells import Cell, CellResult, plan, seed_copies
 from .folder import RunFolder, scores_frame
 from .lock import folder_lock
 from .manifest import environment
@@ -120,6 +120,7 @@ def execute_suite(
     isolate: bool = True,
     progress: ProgressHook | None = None,
     hold: ExitStack | None = None,
+    share_seed_free: bool = True,
 ) -> ExecutedRun:
     """Fit and score every cell of a suite that is not already done, into a run folder.
 
@@ -128,7 +129,10 @@ def execute_suite(
     with ``hold`` the lock is entered into that stack instead and outlives the
     call (the command line keeps it while it writes the report).  Ctrl-C and
     SIGTERM stop the run cleanly: running cells are stopped, finished ones and
-    the tables are stored.
+    the tables are stored.  With ``share_seed_free`` (the default) a method
+    whose output does not depend on the seed is fitted once per dataset and
+    parameter point; its other seeds are stored as verified copies
+    (:func:`~harness.run.cells.seed_copies`, :meth:`RunFolder.write_copy`).
 
     Returns
     -------
@@ -161,17 +165,27 @@ def execute_suite(
         with _stop_on_signals(stop):
             counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
             rows = {name: d.n for name, d in datasets.items()}
-            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows)
-            results = execute(
-                todo,
-                datasets,
-                suite.scoring,
-                replace(execution, log_dir=str(folder.path / "cells")),
-                backend=backend_name,
-                cache=cache,
-                stop=stop,
-            )
-            _store_results(results, suite, folder, cache, counter)
+            copies = seed_copies(cells, suite) if share_seed_free else {}
+            todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows, copies)
+            todo = _copy_finished(todo, copies, folder, counter, _cache_writer(cache, suite))
+            deferred = [c for c in todo if c.key in copies]
+            for batch in ([c for c in todo if c.key not in copies], deferred):
+                if stop.is_set():
+                    break
+                if batch is deferred:  # copies of cells computed just now; those that failed run themselves
+                    batch = _copy_finished(batch, copies, folder, counter, _cache_writer(cache, suite))
+                if not batch:
+                    continue
+                results = execute(
+                    batch,
+                    datasets,
+                    suite.scoring,
+                    replace(execution, log_dir=str(folder.path / "cells")),
+                    backend=backend_name,
+                    cache=cache,
+                    stop=stop,
+                )
+                _store_results(results, suite, folder, cache, counter)
             # Stopped before the first cell was stored, a folder still gets its (empty) table.
             folder.write_table("scores.csv", folder.scores if counter.done else scores_frame([]))
         if not stop.is_set():
@@ -199,10 +213,12 @@ def _store_known(
     cache: EmbeddingCache | None,
     counter: _Progress,
     rows: dict[str, int],
+    copies: dict[str, Cell],
 ) -> list[Cell]:
     """Store the refused cells and those the cache has finished; return the cells left to compute.
 
     ``rows`` gives each dataset's size, so that a cached embedding of another size is not used.
+    Cells in ``copies`` are not looked up: they are copied from their source, and so marked.
     """
     for result in refused:
         if result.cell.key not in done_keys:
@@ -210,7 +226,39 @@ def _store_known(
             counter.stored(result)
     todo = [c for c in cells if c.key not in done_keys]
     log.info("running %d cells (%d already done) into %s", len(todo), counter.done, folder.path)
-    return _from_cache(todo, suite, folder, cache, counter, rows)
+    left = _from_cache([c for c in todo if c.key not in copies], suite, folder, cache, counter, rows)
+    return left + [c for c in todo if c.key in copies]
+
+
+def _cache_writer(cache: EmbeddingCache | None, suite: Suite) -> Callable[[CellResult], None]:
+    """Put an ok result into the cache (nothing without one)."""
+
+    def put(result: CellResult) -> None:
+        if cache is not None and result.status == CellStatus.OK:
+            cache.put_result(result, suite.scoring)
+
+    return put
+
+
+def _copy_finished(
+    todo: list[Cell],
+    copies: dict[str, Cell],
+    folder: RunFolder,
+    counter: _Progress,
+    keep: Callable[[CellResult], None],
+) -> list[Cell]:
+    """Store as copies the cells whose seed-free source is finished ok (``keep`` gets each, for the
+    cache); return the cells left."""
+    left = []
+    for cell in todo:
+        source = copies.get(cell.key)
+        result = folder.write_copy(source.key, cell) if source is not None else None
+        if result is None:
+            left.append(cell)
+        else:
+            keep(result)
+            counter.stored(result)
+    return left
 
 
 def _store_results(

@@ -42,13 +42,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..config import STORED_STATUSES
+from ..config import STORED_STATUSES, CellStatus
 from ..errors import InputError
 from ..metrics import MEASURES, measure_stem
 from ..suite import Suite, parse_suite
 from ..text import exception_line, params_text
 from . import atomic
-from .cells import CellResult
+from .cells import Cell, CellResult
 from .integrity import (
     FORMAT,
     array_facts,
@@ -75,6 +75,7 @@ INFO_COLUMNS = [
     "key",
     "use",
     "from_cache",
+    "copy_of",
 ]
 #: What a folder must hold to be read as a run.
 _EXPECTED = "expected a run folder made by 'foldbench run' (manifest.json and cells/ or scores.csv)"
@@ -98,6 +99,7 @@ def cell_record(result: CellResult) -> dict[str, Any]:
             "fit_peak_mb": result.fit_peak_mb,
             "score_seconds": result.score_seconds,
             "from_cache": result.from_cache,
+            "copy_of": result.copy_of,
             "warnings": list(result.warnings),
             "embedding": None if result.embedding is None else array_facts(result.embedding),
             "curve": None if result.curve is None else {"sha256": _text_digest(_curve_text(result.curve))},
@@ -163,10 +165,20 @@ def _types_problem(doc: dict[str, Any]) -> str | None:
     for name, kind in expected.items():
         if not isinstance(doc.get(name), kind):
             return f"{name} is not a {kind.__name__}"
+    if not isinstance(doc.get("copy_of", ""), str) or doc.get("copy_of", "") not in ("", *_copy_key(doc)):
+        return "copy_of is not the key of another cell"
     for name in ("embedding", "curve", "points"):
         if doc.get(name) is not None and not isinstance(doc[name], dict):
             return f"{name} is not an object"
     return None
+
+
+def _copy_key(doc: dict[str, Any]) -> tuple[str, ...]:
+    """``(copy_of,)`` when it is a cell key other than the record's own, else ``()``."""
+    source = doc.get("copy_of")
+    if isinstance(source, str) and _KEY.fullmatch(source) and source != doc.get("key"):
+        return (source,)
+    return ()
 
 
 def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> pd.DataFrame:
@@ -195,6 +207,7 @@ def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> p
             "key": r["key"],
             "use": c["use"],
             "from_cache": r.get("from_cache", False),
+            "copy_of": r.get("copy_of", ""),
         }
         row.update(r.get("values") or {})
         for name, (low, high) in (r.get("intervals") or {}).items():
@@ -382,6 +395,57 @@ class RunFolder:
             atomic.write_csv(self.path / "points" / f"{key}.csv", result.points)
         atomic.write_json(self.path / "cells" / f"{key}.json", cell_record(result))
         self._forget()
+
+    def write_copy(self, source: str, cell: Cell) -> CellResult | None:
+        """Store ``cell`` as a copy of the finished cell ``source`` (a seed-free fit of another seed).
+
+        The source's record, embedding, curve and per-point table are verified
+        first; the copy gets the same files byte for byte and a record of its
+        own, sealed like any other, whose ``copy_of`` names ``source``.
+
+        Returns
+        -------
+        CellResult or None
+            What was stored, read back verified, or ``None`` when the source is
+            not an intact ok cell (the caller computes the cell instead).
+        """
+        record = self._record_of(source)
+        if record is None or record["status"] != CellStatus.OK:
+            return None
+        files = {"embedding": ("embeddings", "npy"), "curve": ("curves", "csv"), "points": ("points", "csv")}
+        readers = {"embedding": self.embedding, "curve": self.curve, "points": self.points}
+        blobs = {}
+        for name, (folder, ext) in files.items():
+            if record.get(name) is None:
+                continue
+            if readers[name](source) is None:
+                return None
+            blobs[f"{folder}/{cell.key}.{ext}"] = (self.path / folder / f"{source}.{ext}").read_bytes()
+        for name, data in blobs.items():
+            self.write_bytes(name, data)
+        doc = {k: v for k, v in record.items() if k != "sha256"}
+        doc.update(key=cell.key, cell=asdict(cell), copy_of=source)
+        doc["finished"] = datetime.now(UTC).isoformat(timespec="seconds")
+        atomic.write_json(self.path / "cells" / f"{cell.key}.json", seal(doc))
+        self._forget()
+        return CellResult(
+            cell,
+            CellStatus(record["status"]),
+            record["error"],
+            record["detail"],
+            embedding=self.embedding(cell.key),
+            values=dict(record["values"]),
+            intervals={k: (float(v[0]), float(v[1])) for k, v in (record.get("intervals") or {}).items()},
+            estimated=tuple(record["estimated"]),
+            curve=self.curve(cell.key),
+            points=self.points(cell.key),
+            fit_seconds=record["fit_seconds"],
+            fit_peak_mb=record["fit_peak_mb"],
+            score_seconds=record["score_seconds"],
+            from_cache=record["from_cache"],
+            copy_of=source,
+            warnings=tuple(record["warnings"]),
+        )
 
     # ------------------------------------------------------------ reading
 

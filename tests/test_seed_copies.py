@@ -1,0 +1,128 @@
+"""Seed-free cells fitted once: copies give the scores of fitting every seed, and verify like records.
+
+Plumbing tests of our own runner on iris (Fisher 1936, 150 rows) and a small
+generated sheet.  The reference is the same suite run with the sharing switched
+off: every seed fitted and scored on its own, as runs were made before.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from harness.compare import aggregate
+from harness.methods import get_method_spec
+from harness.run.execute import execute_suite
+from harness.run.folder import RunFolder
+from harness.text import seeds_text
+
+SUITE = """name: copies
+seeds: 3
+datasets:
+  - use: iris
+  - use: rolled_sheet
+    name: roll
+    params: {n: 150, noise: 0.05}
+methods:
+  - use: pca
+  - use: classical_mds
+  - use: mds
+    params: {max_iter: 20}
+  - use: random_projection
+measures:
+  k: [5]
+"""
+
+
+def _run(tmp_path: Path, name: str, share: bool) -> RunFolder:
+    path = tmp_path / "copies.yaml"
+    path.write_text(SUITE)
+    return execute_suite(path, tmp_path / name, jobs=1, isolate=False, share_seed_free=share).folder
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory: pytest.TempPathFactory) -> tuple[RunFolder, RunFolder]:
+    tmp = tmp_path_factory.mktemp("copies")
+    return _run(tmp, "shared", True), _run(tmp, "each", False)
+
+
+def _measures(scores: pd.DataFrame) -> pd.DataFrame:
+    skip = ["error", "fit_seconds", "fit_peak_mb", "score_seconds", "key", "from_cache", "copy_of"]
+    return scores.drop(columns=skip).sort_values(["dataset", "method", "seed"]).reset_index(drop=True)
+
+
+def test_copies_score_like_fitting_every_seed(runs: tuple[RunFolder, RunFolder]) -> None:
+    shared, each = runs
+    a = _measures(pd.read_csv(shared.path / "scores.csv"))
+    b = _measures(pd.read_csv(each.path / "scores.csv"))
+    assert list(a.columns) == list(b.columns) and len(a) == len(b) == 24
+    numbers = [c for c in a.columns if pd.api.types.is_float_dtype(a[c])]
+    # the reference is the run without sharing; equal to 1e-12 is the acceptance bound of the change
+    np.testing.assert_allclose(a[numbers].to_numpy(), b[numbers].to_numpy(), rtol=0, atol=1e-12)
+    assert (a.drop(columns=numbers) == b.drop(columns=numbers)).all().all()
+
+
+def test_only_seed_free_methods_are_copied(runs: tuple[RunFolder, RunFolder]) -> None:
+    shared, each = runs
+    s = shared.scores
+    copied = s[s["copy_of"].fillna("") != ""]
+    # pca, classical_mds and mds from a classical start: 2 datasets x 3 methods x 2 later seeds
+    assert sorted(copied["method"].unique()) == ["classical_mds", "mds", "pca"] and len(copied) == 12
+    assert set(copied["seed"]) == {1, 2}
+    firsts = dict(zip(s["key"], s["seed"]))
+    assert all(firsts[k] == 0 for k in copied["copy_of"])
+    assert (each.scores["copy_of"].fillna("") == "").all()
+    for key, source in zip(copied["key"], copied["copy_of"]):
+        assert np.array_equal(shared.embedding(key), shared.embedding(source))
+
+
+def test_ignores_seed_follows_the_parameters() -> None:
+    assert get_method_spec("pca").ignores_seed({})
+    assert get_method_spec("mds").ignores_seed({"init": "classical_mds"})
+    assert not get_method_spec("mds").ignores_seed({"init": "random"})
+    assert not get_method_spec("isomap").ignores_seed({})  # ARPACK start vector: see builtin.py
+    assert not get_method_spec("random_projection").ignores_seed({})
+
+
+def test_a_copy_is_sealed_and_a_damaged_one_is_computed_again(tmp_path: Path) -> None:
+    folder = _run(tmp_path, "r", True)
+    copied = folder.scores[folder.scores["copy_of"].fillna("") != ""]
+    key = str(copied["key"].iloc[0])
+    assert key in folder.finished_keys()
+    record = folder.path / "cells" / f"{key}.json"
+    doc = json.loads(record.read_text())
+    source = doc["copy_of"]
+    doc["copy_of"] = "0" * 16  # edited after sealing: the digest no longer matches
+    record.write_text(json.dumps(doc))
+    assert key not in RunFolder.open(folder.path).finished_keys()
+    again = execute_suite(tmp_path / "copies.yaml", resume=folder.path, jobs=1, isolate=False)
+    assert key in again.folder.finished_keys()
+    row = again.folder.scores.set_index("key").loc[key]
+    assert row["copy_of"] == source  # copied again from its intact source
+
+
+def test_resume_copies_from_a_stored_source(tmp_path: Path) -> None:
+    folder = _run(tmp_path, "r", True)
+    s = folder.scores
+    copied = s[s["copy_of"].fillna("") != ""]
+    for key in copied["key"]:
+        (folder.path / "cells" / f"{key}.json").unlink()
+    again = execute_suite(tmp_path / "copies.yaml", resume=folder.path, jobs=1, isolate=False).folder
+    t = again.scores.set_index("key")
+    assert set(copied["key"]) <= set(t.index)
+    assert (t.loc[copied["key"], "copy_of"] == copied.set_index("key")["copy_of"]).all()
+
+
+def test_seed_statistics_say_deterministic(runs: tuple[RunFolder, RunFolder]) -> None:
+    shared, _ = runs
+    table = aggregate(shared.scores).set_index(["dataset", "method"])
+    pca, rp = table.loc[("iris", "pca")], table.loc[("iris", "random_projection")]
+    assert bool(pca["deterministic"]) and not bool(rp["deterministic"])
+    # one fit has no seed spread: no sd and no t interval, instead of sd 0 over copies
+    assert np.isnan(pca["trustworthiness@5_sd"]) and np.isnan(pca["trustworthiness@5_lo"])
+    assert rp["trustworthiness@5_sd"] > 0
+    assert seeds_text(pca) == "3/3 deterministic" and seeds_text(rp) == "3/3"

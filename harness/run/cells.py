@@ -36,6 +36,15 @@ class Cell:
     seed: int
     dimensions: int
     data_fingerprint: str
+    holdout: float | int | None = None
+    out_of_sample: str = ""
+
+    def as_dict(self) -> dict[str, Any]:
+        """The fields; the held-out ones only when set, so cells fitted on every point keep their keys."""
+        doc = asdict(self)
+        if self.holdout is None:
+            del doc["holdout"], doc["out_of_sample"]
+        return doc
 
     @property
     def params_text(self) -> str:
@@ -45,7 +54,7 @@ class Cell:
     @property
     def key(self) -> str:
         """Stable 16-hex name of the cell (hash of everything that defines it)."""
-        doc = json.dumps(asdict(self), sort_keys=True, default=str)
+        doc = json.dumps(self.as_dict(), sort_keys=True, default=str)
         return hashlib.sha256(doc.encode()).hexdigest()[:16]
 
     def params_dict(self) -> dict[str, Any]:
@@ -85,6 +94,7 @@ class CellResult:
     score_seconds: float = float("nan")
     from_cache: bool = False
     warnings: tuple[str, ...] = ()
+    heldout: dict[str, Any] = field(default_factory=dict)
 
 
 def _canonical(params: dict[str, Any]) -> tuple[tuple[str, Any], ...]:
@@ -122,7 +132,10 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
                 reason = spec.check_dataset(dict(m.params), ds, suite.dimensions)
             for point in m.grid_points():
                 for seed in suite.seeds:
-                    cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)
+                    oos = m.out_of_sample if d.holdout is not None else ""
+                    cell = Cell(
+                        d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp, d.holdout, oos
+                    )
                     if reason:
                         refused.append(CellResult(cell, CellStatus.SKIPPED, reason))
                     else:

@@ -33,7 +33,6 @@ import io
 import json
 import logging
 import re
-from dataclasses import asdict
 from datetime import UTC, datetime
 from functools import cached_property
 from pathlib import Path
@@ -87,7 +86,7 @@ def cell_record(result: CellResult) -> dict[str, Any]:
         {
             "format": FORMAT,
             "key": c.key,
-            "cell": asdict(c),
+            "cell": c.as_dict(),
             "status": str(result.status),
             "error": result.error,
             "detail": result.detail,
@@ -99,6 +98,7 @@ def cell_record(result: CellResult) -> dict[str, Any]:
             "score_seconds": result.score_seconds,
             "from_cache": result.from_cache,
             "warnings": list(result.warnings),
+            "heldout": result.heldout or None,
             "embedding": None if result.embedding is None else array_facts(result.embedding),
             "curve": None if result.curve is None else {"sha256": _text_digest(_curve_text(result.curve))},
             "points": None if result.points is None else {"sha256": _text_digest(_curve_text(result.points))},
@@ -117,6 +117,7 @@ def _text_digest(text: str) -> str:
 
 _KEY = re.compile(r"[0-9a-f]{16}")
 _CELL_FIELDS = {"dataset", "method", "use", "params", "seed", "dimensions", "data_fingerprint"}
+_HELDOUT_FIELDS = {"holdout", "out_of_sample"}
 
 
 def record_problem(doc: Any) -> str | None:
@@ -125,7 +126,7 @@ def record_problem(doc: Any) -> str | None:
     if problem:
         return problem
     cell = doc.get("cell")
-    if not isinstance(cell, dict) or set(cell) != _CELL_FIELDS:
+    if not isinstance(cell, dict) or not _CELL_FIELDS <= set(cell) <= _CELL_FIELDS | _HELDOUT_FIELDS:
         return "its cell is not a cell"
     if not isinstance(doc.get("key"), str) or not _KEY.fullmatch(doc["key"]):
         return "its key is not a cell key"
@@ -163,7 +164,7 @@ def _types_problem(doc: dict[str, Any]) -> str | None:
     for name, kind in expected.items():
         if not isinstance(doc.get(name), kind):
             return f"{name} is not a {kind.__name__}"
-    for name in ("embedding", "curve", "points"):
+    for name in ("embedding", "curve", "points", "heldout"):
         if doc.get(name) is not None and not isinstance(doc[name], dict):
             return f"{name} is not an object"
     return None
@@ -196,6 +197,9 @@ def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> p
             "use": c["use"],
             "from_cache": r.get("from_cache", False),
         }
+        if r.get("heldout"):
+            row["out_of_sample"] = r["heldout"].get("map") or "none"
+            row["heldout_reason"] = r["heldout"].get("reason", "")
         row.update(r.get("values") or {})
         for name, (low, high) in (r.get("intervals") or {}).items():
             row[f"{name}{CI_LOW}"], row[f"{name}{CI_HIGH}"] = low, high

@@ -87,7 +87,9 @@ def holdout(raw: Any, where: str) -> float | int | None:
     if isinstance(raw, bool) or not isinstance(raw, (int, float)):
         raise InputError(where, f"expected a fraction in (0, 1) or a count of points, got {show(raw)}")
     if isinstance(raw, int):
-        return integer(raw, where, low=1)
+        if raw < 1:
+            raise InputError(where, f"expected a fraction in (0, 1) or a count of points >= 1, got {raw}")
+        return raw
     if not 0.0 < raw < 1.0:
         raise InputError(where, f"expected a fraction in (0, 1) or an integer count of points, got {raw}")
     return float(raw)

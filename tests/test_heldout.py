@@ -129,6 +129,14 @@ def test_knn_interpolation_is_recorded_and_labelled(held_run):
     assert "<h2>Held-out points</h2>" in (held_run / "report.html").read_text()
 
 
+def test_a_method_without_a_map_ranks_last_on_a_heldout_measure(held_run):
+    # our ranking rule (docs/notes/heldout.md): no held-out value is the worst rank, never a skipped one
+    summary = pd.read_csv(held_run / "summary.csv")
+    iris = summary[summary["dataset"] == "iris"].set_index("method")
+    ranks = iris["rank_heldout_trustworthiness@5"]
+    assert ranks["tsne"] == len(iris) and ranks.drop("tsne").max() < len(iris)
+
+
 def test_gap_is_in_sample_minus_held_out(held_run):
     summary = pd.read_csv(held_run / "summary.csv")
     gap = summary["trustworthiness@5"] - summary["heldout_trustworthiness@5"]

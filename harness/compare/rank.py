@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Literal
 
 import numpy as np
 import pandas as pd
@@ -96,7 +97,9 @@ def rank_within_datasets(summary: pd.DataFrame, rank_by: Mapping[str, float]) ->
             if col not in group or group[col].isna().all():
                 continue
             # a method that cannot place new points has no held-out value: it ranks last there
-            missing = "bottom" if MEASURES[measure_stem(col)].scope == "heldout" else "keep"
+            missing: Literal["bottom", "keep"] = (
+                "bottom" if MEASURES[measure_stem(col)].scope == "heldout" else "keep"
+            )
             r = group[col].rank(method="average", ascending=not higher_is_better(col), na_option=missing)
             group[f"rank_{col}"] = r
             total += r.fillna(0) * w

@@ -8,11 +8,12 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Literal
 
 import numpy as np
 import pandas as pd
 
-from ..metrics import MEASURES, higher_is_better
+from ..metrics import MEASURES, higher_is_better, measure_stem
 from .aggregate import aggregate
 from .stats import FriedmanResult, critical_difference, friedman_test, indistinct_groups, rank_blocks
 
@@ -95,7 +96,11 @@ def rank_within_datasets(summary: pd.DataFrame, rank_by: Mapping[str, float]) ->
         for col, w in rank_by.items():
             if col not in group or group[col].isna().all():
                 continue
-            r = group[col].rank(method="average", ascending=not higher_is_better(col))
+            # a method that cannot place new points has no held-out value: it ranks last there
+            missing: Literal["bottom", "keep"] = (
+                "bottom" if MEASURES[measure_stem(col)].scope == "heldout" else "keep"
+            )
+            r = group[col].rank(method="average", ascending=not higher_is_better(col), na_option=missing)
             group[f"rank_{col}"] = r
             total += r.fillna(0) * w
             weight += r.notna() * w

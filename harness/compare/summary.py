@@ -10,6 +10,7 @@ import pandas as pd
 from ..config import CellStatus, is_failure
 from ..run.folder import RunFolder
 from ..suite import Suite
+from .heldout import heldout_markdown, with_gaps
 from .rank import Ranking, rank_run, resolve_rank_by
 from .tables import ranking_markdown
 
@@ -118,8 +119,9 @@ def summarise(folder: RunFolder, suite: Suite | None = None) -> RunSummary:
     """
     suite = suite or folder.suite
     summary = rank_folder(folder, suite)
-    folder.write_table("summary.csv", summary.ranking.ranked.drop(columns=["tuned"]))
-    folder.write_text(
-        "ranking.md", ranking_markdown(suite.name, summary.ranking, suite.gridded_methods, summary.notes)
-    )
+    table = with_gaps(summary.ranking.ranked.drop(columns=["tuned"]), summary.scores)
+    folder.write_table("summary.csv", table)
+    text = ranking_markdown(suite.name, summary.ranking, suite.gridded_methods, summary.notes)
+    held = heldout_markdown(table, suite.scoring.ks[0])
+    folder.write_text("ranking.md", text + ("\n" + held if held else ""))
     return summary

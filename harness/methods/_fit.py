@@ -37,7 +37,14 @@ class DegenerateEmbedding(RuntimeError):
 def fit_embedding(
     spec: MethodSpec, dataset: Dataset, n_components: int, params: dict[str, Any], seed: int
 ) -> np.ndarray:
-    """Fit ``spec`` on ``dataset`` and return a checked embedding.
+    """Fit ``spec`` on ``dataset`` and return a checked embedding (see :func:`fit_model`)."""
+    return fit_model(spec, dataset, n_components, params, seed)[1]
+
+
+def fit_model(
+    spec: MethodSpec, dataset: Dataset, n_components: int, params: dict[str, Any], seed: int
+) -> tuple[Any, np.ndarray]:
+    """Fit ``spec`` on ``dataset``; return the fitted estimator and its checked embedding.
 
     Parameters
     ----------
@@ -55,7 +62,9 @@ def fit_embedding(
 
     Returns
     -------
-    ndarray of shape (n, n_components), float64
+    estimator : object
+        The fitted estimator (its ``transform``, when it has one, places new points).
+    embedding : ndarray of shape (n, n_components), float64
 
     Raises
     ------
@@ -84,7 +93,7 @@ def fit_embedding(
         raw = estimator.fit_transform(data)
     for w in caught:
         logger.warning("%s on %s: %s: %s", spec.name, dataset.name, w.category.__name__, w.message)
-    return check_embedding(raw, dataset.n, n_components, spec.name, dataset.name)
+    return estimator, check_embedding(raw, dataset.n, n_components, spec.name, dataset.name)
 
 
 def check_embedding(raw: Any, n: int, n_components: int, method: str = "", dataset: str = "") -> np.ndarray:

@@ -147,6 +147,7 @@ def plugin_spec(path: str, where: str = "", roots: Sequence[str] = ()) -> Method
         randomized="random_state" in named,
         quadratic_memory=bool(getattr(target, "quadratic_memory", False)),
         source=path,
+        places_new_points=inspect.isclass(target) and callable(getattr(target, "transform", None)),
     )
 
 

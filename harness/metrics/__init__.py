@@ -25,6 +25,8 @@ from ..errors import InputError
 from ._catalogue import MEASURES, MeasureInfo, higher_is_better, measure_stem
 from ._distances import DistanceRows
 from ._global import JACKKNIFE_GROUPS, global_measures
+from ._heldout import PREFIX as HELDOUT_PREFIX
+from ._heldout import placement_measures
 from ._intervals import local_estimates
 from ._labels import knn_accuracy, silhouette
 from ._local import PER_K, collect, curve_table
@@ -35,6 +37,7 @@ from ._rnx_area import rnx_area
 from ._standard import standard_distances, standard_points
 
 __all__ = [
+    "HELDOUT_PREFIX",
     "MEASURES",
     "MeasureInfo",
     "MeasureResult",
@@ -43,6 +46,7 @@ __all__ = [
     "higher_is_better",
     "knn_overlap",
     "measure_stem",
+    "placement_measures",
     "pointwise",
     "score",
 ]

@@ -20,7 +20,7 @@ class MeasureInfo:
     higher_is_better : bool
         Direction used for ranking.
     scope : str
-        ``local``, ``global``, ``labels``, ``latent`` or ``cost``.
+        ``local``, ``global``, ``labels``, ``latent``, ``heldout`` or ``cost``.
     per_k : bool
         Computed at each neighbourhood size k of the suite.
     needs : str or None
@@ -183,6 +183,60 @@ MEASURES: dict[str, MeasureInfo] = {
         ),
     )
 }
+
+
+#: In-sample measures that are also measured among the held-out points (prefix ``heldout_``).
+HELDOUT_OF = (
+    "trustworthiness",
+    "continuity",
+    "knn_recall",
+    "mrre_data",
+    "mrre_embedding",
+    "lcmc",
+    "rnx_auc",
+    "stress",
+    "sammon_stress",
+    "shepard_spearman",
+    "latent_spearman",
+)
+
+
+def _heldout_entries() -> dict[str, MeasureInfo]:
+    out = {}
+    for name in HELDOUT_OF:
+        m = MEASURES[name]
+        out["heldout_" + name] = MeasureInfo(
+            "heldout_" + name,
+            m.higher_is_better,
+            "heldout",
+            m.per_k,
+            m.needs,
+            f"{name} among the held-out points only, their data vs where the fitted map put them",
+            m.source,
+            at_k_too=m.at_k_too,
+        )
+    out["heldout_placement"] = MeasureInfo(
+        "heldout_placement",
+        True,
+        "heldout",
+        True,
+        None,
+        "mean over held-out points of |k nearest training points in data ∩ in embedding| / k",
+        "neighbourhood preservation of new points, common practice",
+    )
+    out["heldout_knn_accuracy"] = MeasureInfo(
+        "heldout_knn_accuracy",
+        True,
+        "heldout",
+        True,
+        "labels",
+        "share of held-out points a k-NN classifier on the training points' embedding and labels gets right",
+        "van der Maaten 2009 (held-out 1-NN error of a parametric embedding)",
+    )
+    return out
+
+
+MEASURES.update(_heldout_entries())
 
 
 def measure_stem(column: str) -> str:

@@ -17,6 +17,7 @@ from string import Template
 
 import pandas as pd
 
+from ..compare.heldout import GAP_PREFIX, GAP_SENTENCE, with_gaps
 from ..compare.tables import arrow
 from ..datasets import Dataset
 from ..metrics import higher_is_better
@@ -299,6 +300,28 @@ def _stability(analysis: Analysis) -> str:
     )
 
 
+def _heldout(analysis: Analysis) -> str:
+    """The held-out section: in-sample, held-out and gap per configuration (empty without a holdout)."""
+    k = analysis.run.suite.scoring.ks[0]
+    table_ = with_gaps(analysis.ranked, analysis.run.scores)
+    t = f"trustworthiness@{k}"
+    if f"{GAP_PREFIX}{t}" not in table_:
+        return ""
+    rows = []
+    for r in table_.to_dict("records"):
+        shown = r.get("out_of_sample") or "none"
+        if isinstance(r.get("heldout_reason"), str) and r["heldout_reason"]:
+            shown = f"{shown} ({r['heldout_reason']})"
+        rows.append(
+            [_e(r["dataset"]), _e(r["method"]), _e(r["params"]), _e(shown)]
+            + [_num(r.get(c)) for c in (t, f"heldout_{t}", f"{GAP_PREFIX}{t}", f"heldout_placement@{k}")]
+        )
+    headers = ["dataset", "method", "params", "out-of-sample map", f"{t} in-sample", "held-out", "gap"]
+    return f"<h2>Held-out points</h2><p class='small'>{_e(GAP_SENTENCE)}</p>" + table(
+        [*headers, f"placement@{k} ↑"], rows, [False] * 4 + [True] * 4
+    )
+
+
 def render(
     analysis: Analysis,
     sentences: Sequence[str],
@@ -347,6 +370,7 @@ def render(
         pictures=_pictures(figures),
         failures=_failures(figures, defects or {}, datasets or {}),
         stability=_stability(analysis),
+        heldout=_heldout(analysis),
         method=(_TEMPLATES / "method.html").read_text(encoding="utf-8"),
         footer=f"foldbench {_e(version)} · written {stamp} · suite hash "
         f"{_e(run.manifest.get('suite', {}).get('hash', '?'))}",

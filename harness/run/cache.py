@@ -202,6 +202,8 @@ class EmbeddingCache:
 
     def _entry(self, cell: Cell, rows: int | None) -> tuple[dict[str, Any], np.ndarray] | None:
         """The verified entry of ``cell``: its JSON and its embedding; ``None`` when absent or bad."""
+        if cell.holdout is not None:
+            return None  # a fit on part of the data, with held-out scores the cache does not keep
         key = cache_key(cell)
         npy, meta = self._paths(key)
         if not meta.exists():
@@ -294,7 +296,7 @@ class EmbeddingCache:
     def put_result(self, result: CellResult, scoring: Scoring) -> None:
         """Store an ok cell: its embedding if new, and its scores under these scoring settings."""
         cell = result.cell
-        if result.embedding is None or not self._ensure_root():
+        if result.embedding is None or cell.holdout is not None or not self._ensure_root():
             return
         found = self._entry(cell, None) if result.from_cache else None
         if found is None:

@@ -37,6 +37,15 @@ class Cell:
     seed: int
     dimensions: int
     data_fingerprint: str
+    holdout: float | int | None = None
+    out_of_sample: str = ""
+
+    def as_dict(self) -> dict[str, Any]:
+        """The fields; the held-out ones only when set, so cells fitted on every point keep their keys."""
+        doc = asdict(self)
+        if self.holdout is None:
+            del doc["holdout"], doc["out_of_sample"]
+        return doc
 
     @property
     def params_text(self) -> str:
@@ -46,7 +55,7 @@ class Cell:
     @property
     def key(self) -> str:
         """Stable 16-hex name of the cell (hash of everything that defines it)."""
-        doc = json.dumps(asdict(self), sort_keys=True, default=str)
+        doc = json.dumps(self.as_dict(), sort_keys=True, default=str)
         return hashlib.sha256(doc.encode()).hexdigest()[:16]
 
     def params_dict(self) -> dict[str, Any]:
@@ -89,6 +98,7 @@ class CellResult:
     from_cache: bool = False
     copy_of: str = ""
     warnings: tuple[str, ...] = ()
+    heldout: dict[str, Any] = field(default_factory=dict)
 
 
 def _canonical(params: dict[str, Any]) -> tuple[tuple[str, Any], ...]:
@@ -133,7 +143,10 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
                     unmatched[i] = ""
             for point in m.grid_points():
                 for seed in suite.seeds:
-                    cell = Cell(d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp)
+                    oos = m.out_of_sample if d.holdout is not None else ""
+                    cell = Cell(
+                        d.name, m.name, m.use, _canonical(point), seed, suite.dimensions, fp, d.holdout, oos
+                    )
                     if reason:
                         refused.append(CellResult(cell, CellStatus.SKIPPED, reason))
                     else:
@@ -151,11 +164,14 @@ def seed_copies(cells: list[Cell], suite: Suite) -> dict[str, Cell]:
     A method whose output does not depend on the seed for its parameters
     (:meth:`~harness.methods.MethodSpec.ignores_seed`) is fitted and scored once,
     for its first seed in plan order; the suite scores every cell with the same
-    scoring seed, so its other seeds' results are the same bytes.
+    scoring seed, so its other seeds' results are the same bytes.  Cells with a
+    held-out split are never copied (the split depends on the seed).
     """
     first: dict[tuple[Any, ...], Cell] = {}
     copies: dict[str, Cell] = {}
     for cell in cells:
+        if cell.holdout is not None:
+            continue  # every seed draws its own held-out split, so no two seeds fit the same points
         spec = get_method_spec(cell.use, roots=suite.plugin_roots)
         if not spec.ignores_seed(cell.params_dict()):
             continue

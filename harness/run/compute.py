@@ -10,15 +10,17 @@ from __future__ import annotations
 
 import time
 import traceback
+from typing import Any
 
 import numpy as np
 
 from ..config import CellStatus, Scoring
 from ..datasets import Dataset
-from ..methods import DegenerateEmbedding, fit_embedding, get_method_spec
+from ..methods import DegenerateEmbedding, MethodSpec, fit_model, get_method_spec
 from ..metrics import score
 from ..text import exception_line
 from .cells import Cell, CellResult, KnownFit
+from .heldout import full_embedding, heldout_values, points_in_rows, split_rows, subset
 
 #: Frames of a traceback kept in a failed cell's ``detail``.
 TRACE_FRAMES = 8
@@ -83,6 +85,8 @@ def compute_cell(
         Status ``ok`` with values, or ``failed`` with the error text; never raises
         for a problem of the method or its output.
     """
+    if cell.holdout is not None:
+        return _compute_heldout(cell, dataset, scoring, roots)
     if known is not None:
         result = score_cell(cell, dataset, known.embedding, scoring)
         if result.status == CellStatus.OK:
@@ -93,11 +97,61 @@ def compute_cell(
         refit = compute_cell(cell, dataset, scoring, None, roots)
         refit.warnings += (f"the cached embedding was not used ({result.error}); fitted again",)
         return refit
+    fitted = _fit(cell, dataset, roots)
+    if isinstance(fitted, CellResult):
+        return fitted
+    _spec, _estimator, Y, fit_seconds, peak_mb = fitted
+    result = score_cell(cell, dataset, Y, scoring)
+    result.fit_seconds = fit_seconds
+    result.fit_peak_mb = peak_mb
+    return result
+
+
+def _compute_heldout(cell: Cell, dataset: Dataset, scoring: Scoring, roots: tuple[str, ...]) -> CellResult:
+    """Fit on the training rows of the cell's split, score them, then place and score the held-out rows.
+
+    A known fit is never used: the cache keeps whole-data fits only.
+    """
+    assert cell.holdout is not None
+    rows = split_rows(dataset, cell.holdout, cell.seed)
+    train = subset(dataset, rows[0])
+    fitted = _fit(cell, train, roots)
+    if isinstance(fitted, CellResult):
+        return fitted
+    spec, estimator, Y_train, fit_seconds, peak_mb = fitted
+    result = score_cell(cell, train, Y_train, scoring)
+    result.fit_seconds, result.fit_peak_mb = fit_seconds, peak_mb
+    if result.status != CellStatus.OK:
+        return result
+    try:
+        values, Y_test, record = heldout_values(
+            spec, estimator, cell.out_of_sample, dataset, rows, Y_train, scoring
+        )
+    except DegenerateEmbedding as exc:
+        values, Y_test = {}, None
+        record = {"rows": rows[1].tolist(), "n_train": int(rows[0].size), "n_heldout": int(rows[1].size)}
+        record.update(map="", reason=f"held-out points: {exc.reason}")
+    except Exception as exc:  # a method's transform may raise anything; the in-sample scores stand
+        values, Y_test = {}, None
+        record = {"rows": rows[1].tolist(), "n_train": int(rows[0].size), "n_heldout": int(rows[1].size)}
+        record.update(map="", reason=f"held-out points: {exception_line(exc, 400)}")
+    result.values.update(values)
+    result.heldout = record
+    result.points = points_in_rows(result.points, rows[0])
+    # the whole dataset's coordinates when the held-out rows were placed; else none (rows would not match)
+    result.embedding = None if Y_test is None else full_embedding(dataset.n, rows, Y_train, Y_test)
+    return result
+
+
+def _fit(
+    cell: Cell, dataset: Dataset, roots: tuple[str, ...]
+) -> CellResult | tuple[MethodSpec, Any, np.ndarray, float, float]:
+    """Fit the cell's method: (spec, estimator, embedding, seconds, peak MiB), or a failed result."""
     try:
         spec = get_method_spec(cell.use, roots=roots)
         with _PeakMeter() as meter:
             t0 = time.perf_counter()
-            Y = fit_embedding(spec, dataset, cell.dimensions, cell.params_dict(), cell.seed)
+            estimator, Y = fit_model(spec, dataset, cell.dimensions, cell.params_dict(), cell.seed)
             fit_seconds = time.perf_counter() - t0
     except DegenerateEmbedding as exc:
         return CellResult(cell, CellStatus.FAILED, f"degenerate embedding: {exc.reason}")
@@ -112,10 +166,7 @@ def compute_cell(
         return CellResult(
             cell, CellStatus.FAILED, exception_line(exc, 500), detail=traceback.format_exc(limit=TRACE_FRAMES)
         )
-    result = score_cell(cell, dataset, Y, scoring)
-    result.fit_seconds = fit_seconds
-    result.fit_peak_mb = meter.peak_mb
-    return result
+    return spec, estimator, Y, fit_seconds, meter.peak_mb
 
 
 def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) -> CellResult:

@@ -33,7 +33,6 @@ import io
 import json
 import logging
 import re
-from dataclasses import asdict
 from datetime import UTC, datetime
 from functools import cached_property
 from pathlib import Path
@@ -88,7 +87,7 @@ def cell_record(result: CellResult) -> dict[str, Any]:
         {
             "format": FORMAT,
             "key": c.key,
-            "cell": asdict(c),
+            "cell": c.as_dict(),
             "status": str(result.status),
             "error": result.error,
             "detail": result.detail,
@@ -101,6 +100,7 @@ def cell_record(result: CellResult) -> dict[str, Any]:
             "from_cache": result.from_cache,
             "copy_of": result.copy_of,
             "warnings": list(result.warnings),
+            "heldout": result.heldout or None,
             "embedding": None if result.embedding is None else array_facts(result.embedding),
             "curve": None if result.curve is None else {"sha256": _text_digest(_curve_text(result.curve))},
             "points": None if result.points is None else {"sha256": _text_digest(_curve_text(result.points))},
@@ -119,6 +119,7 @@ def _text_digest(text: str) -> str:
 
 _KEY = re.compile(r"[0-9a-f]{16}")
 _CELL_FIELDS = {"dataset", "method", "use", "params", "seed", "dimensions", "data_fingerprint"}
+_HELDOUT_FIELDS = {"holdout", "out_of_sample"}
 
 
 def record_problem(doc: Any) -> str | None:
@@ -127,7 +128,7 @@ def record_problem(doc: Any) -> str | None:
     if problem:
         return problem
     cell = doc.get("cell")
-    if not isinstance(cell, dict) or set(cell) != _CELL_FIELDS:
+    if not isinstance(cell, dict) or not _CELL_FIELDS <= set(cell) <= _CELL_FIELDS | _HELDOUT_FIELDS:
         return "its cell is not a cell"
     if not isinstance(doc.get("key"), str) or not _KEY.fullmatch(doc["key"]):
         return "its key is not a cell key"
@@ -167,7 +168,7 @@ def _types_problem(doc: dict[str, Any]) -> str | None:
             return f"{name} is not a {kind.__name__}"
     if not isinstance(doc.get("copy_of", ""), str) or doc.get("copy_of", "") not in ("", *_copy_key(doc)):
         return "copy_of is not the key of another cell"
-    for name in ("embedding", "curve", "points"):
+    for name in ("embedding", "curve", "points", "heldout"):
         if doc.get(name) is not None and not isinstance(doc[name], dict):
             return f"{name} is not an object"
     return None
@@ -209,6 +210,9 @@ def scores_frame(records: list[dict[str, Any]], suite: Suite | None = None) -> p
             "from_cache": r.get("from_cache", False),
             "copy_of": r.get("copy_of", ""),
         }
+        if r.get("heldout"):
+            row["out_of_sample"] = r["heldout"].get("map") or "none"
+            row["heldout_reason"] = r["heldout"].get("reason", "")
         row.update(r.get("values") or {})
         for name, (low, high) in (r.get("intervals") or {}).items():
             row[f"{name}{CI_LOW}"], row[f"{name}{CI_HIGH}"] = low, high
@@ -424,7 +428,7 @@ class RunFolder:
         for name, data in blobs.items():
             self.write_bytes(name, data)
         doc = {k: v for k, v in record.items() if k != "sha256"}
-        doc.update(key=cell.key, cell=asdict(cell), copy_of=source)
+        doc.update(key=cell.key, cell=cell.as_dict(), copy_of=source)
         doc["finished"] = datetime.now(UTC).isoformat(timespec="seconds")
         atomic.write_json(self.path / "cells" / f"{cell.key}.json", seal(doc))
         self._forget()

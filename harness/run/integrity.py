@@ -55,6 +55,12 @@ MEASURE_RANGES: dict[str, tuple[float, float]] = {
     "score_seconds": (0.0, _INF),
 }
 
+# a held-out measure has the range of its in-sample twin; placement is a recall, an accuracy a fraction
+MEASURE_RANGES.update(
+    {f"heldout_{k}": v for k, v in list(MEASURE_RANGES.items()) if not k.endswith(("_seconds", "_mb"))}
+)
+MEASURE_RANGES.update({"heldout_placement": (0.0, 1.0), "heldout_knn_accuracy": (0.0, 1.0)})
+
 #: Rounding slack at the ends of a range (values are sums of floats).
 _SLACK = 1e-9
 

@@ -48,6 +48,7 @@ _SUITE_KEYS = (
     "run",
     "expect",
     "tolerances",
+    "holdout",
 )
 
 
@@ -91,7 +92,8 @@ def parse_suite(text: str, path: str = "<suite>", *, resolve_plugins: bool = Tru
     roots = tuple(dict.fromkeys([str(Path.cwd()), str(base)]))
     try:
         doc = _document(read_yaml(text))
-        datasets = sections.dataset_entries(doc["datasets"], "datasets", base)
+        share = sections.holdout(doc.get("holdout"), "holdout")
+        datasets = sections.dataset_entries(doc["datasets"], "datasets", base, share)
         methods = sections.method_entries(
             doc["methods"], "methods", roots, resolve_plugins=resolve_plugins, base=base
         )

@@ -10,15 +10,15 @@ from typing import Any
 from ..config import BACKEND_NAMES, MAX_CELLS, MAX_GRID_POINTS, MAX_SEED, MAX_SEEDS, RunSettings, Scoring
 from ..datasets import get_dataset_spec
 from ..errors import InputError, suggest
-from ..methods import MethodSpec, get_method_spec
+from ..methods import OUT_OF_SAMPLE_MAPS, MethodSpec, get_method_spec
 from ..params import validate_params
 from ..text import show
 from ._read import integer, listed, mapping, measure_key, no_unknown, parse_size, plain_name, unique_names
 from .model import DatasetEntry, MethodEntry
 
 _PATH_PARAMS = ("path", "labels_path")
-_DATASET_KEYS = ("use", "name", "params")
-_METHOD_KEYS = ("use", "name", "params", "grid")
+_DATASET_KEYS = ("use", "name", "params", "holdout")
+_METHOD_KEYS = ("use", "name", "params", "grid", "out_of_sample")
 _SCORING_KEYS = ("k", "rank_by", "pair_sample_above", "pairs", "estimate_above", "queries", "memory", "seed")
 _RUN_KEYS = ("jobs", "time_limit", "quadratic_limit", "backend", "scheduler")
 
@@ -80,8 +80,37 @@ def _entry(
     return item, use
 
 
-def dataset_entries(raw: Any, where: str, base: Path) -> tuple[DatasetEntry, ...]:
-    """The ``datasets`` list; relative file paths are resolved against ``base``."""
+def holdout(raw: Any, where: str) -> float | int | None:
+    """A held-out share: a fraction in (0, 1) or a count of points (at least 1); ``None`` when absent."""
+    if raw is None:
+        return None
+    if isinstance(raw, bool) or not isinstance(raw, (int, float)):
+        raise InputError(where, f"expected a fraction in (0, 1) or a count of points, got {show(raw)}")
+    if isinstance(raw, int):
+        if raw < 1:
+            raise InputError(where, f"expected a fraction in (0, 1) or a count of points >= 1, got {raw}")
+        return raw
+    if not 0.0 < raw < 1.0:
+        raise InputError(where, f"expected a fraction in (0, 1) or an integer count of points, got {raw}")
+    return float(raw)
+
+
+def out_of_sample(raw: Any, where: str) -> str:
+    """A method entry's ``out_of_sample`` map (``""``: the method's own ``transform``)."""
+    if raw is None:
+        return ""
+    if raw not in OUT_OF_SAMPLE_MAPS:
+        raise InputError(where, f"expected one of {', '.join(OUT_OF_SAMPLE_MAPS)}, got {show(raw)}")
+    return "" if raw == "transform" else str(raw)
+
+
+def dataset_entries(
+    raw: Any, where: str, base: Path, default_holdout: float | int | None = None
+) -> tuple[DatasetEntry, ...]:
+    """The ``datasets`` list; relative file paths are resolved against ``base``.
+
+    Each entry's ``holdout`` overrides the suite's ``default_holdout``.
+    """
     items = listed(raw, where, "datasets")
     if not items:
         raise InputError(where, "expected at least one dataset")
@@ -96,7 +125,8 @@ def dataset_entries(raw: Any, where: str, base: Path) -> tuple[DatasetEntry, ...
                 params[key] = str((base / params[key]).resolve())
         if any(p.name == "path" for p in spec.params) and params.get("path") is None:
             raise InputError(f"{at}.params.path", "missing: the file to read")
-        out.append(DatasetEntry(plain_name(item.get("name", use), f"{at}.name"), use, params))
+        share = holdout(item["holdout"], f"{at}.holdout") if "holdout" in item else default_holdout
+        out.append(DatasetEntry(plain_name(item.get("name", use), f"{at}.name"), use, params, share))
     unique_names([d.name for d in out], where)
     return tuple(out)
 
@@ -133,7 +163,8 @@ def method_entries(
                 k: tuple(listed(v, f"{at}.grid.{k}", "values"))
                 for k, v in mapping(item.get("grid") or {}, f"{at}.grid", "a grid").items()
             }
-            out.append(MethodEntry(name, use, params, grid, "other"))
+            oos = out_of_sample(item.get("out_of_sample"), f"{at}.out_of_sample")
+            out.append(MethodEntry(name, use, params, grid, "other", oos))
             continue
         spec = get_method_spec(use, f"{at}.use", roots=roots)
         raw_params = dict(mapping(item.get("params") or {}, f"{at}.params", "parameters"))
@@ -150,7 +181,8 @@ def method_entries(
             raise InputError(
                 f"{at}.grid", f"expected at most {MAX_GRID_POINTS:,} grid points, got {points:,} combinations"
             )
-        out.append(MethodEntry(name, use, params, grid, spec.family))
+        oos = out_of_sample(item.get("out_of_sample"), f"{at}.out_of_sample")
+        out.append(MethodEntry(name, use, params, grid, spec.family, oos))
     unique_names([m.name for m in out], where)
     return tuple(out)
 

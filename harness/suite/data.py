@@ -37,7 +37,41 @@ def load_datasets(suite: Suite) -> dict[str, Dataset]:
             raise InputError(err.where or f"{label}: datasets[{i}]", err.expected) from None
     for i, entry in enumerate(suite.datasets):
         _check_against(suite, data[entry.name], f"datasets[{i}] ('{entry.name}')", label)
+        if entry.holdout is not None:
+            _check_holdout(suite, entry.holdout, data[entry.name], f"datasets[{i}] ('{entry.name}')", label)
     return data
+
+
+def heldout_count(holdout: float | int, n: int) -> int:
+    """Points a holdout setting takes out of n (a fraction rounds up, as scikit-learn's split does)."""
+    return int(holdout) if isinstance(holdout, int) else int(np.ceil(holdout * n))
+
+
+def _check_holdout(suite: Suite, holdout: float | int, ds: Dataset, which: str, label: str) -> None:
+    """Refuse a split that leaves either side too small for the largest k (k < n/2 on each side)."""
+    where = f"{label}: {which} holdout"
+    if ds.is_precomputed:
+        raise InputError(
+            where, "expected a dataset of feature coordinates; a distance matrix has no rows to hold out"
+        )
+    n_test = heldout_count(holdout, ds.n)
+    n_train = ds.n - n_test
+    k = max(suite.scoring.ks)
+    if min(n_train, n_test) <= 2 * k:
+        raise InputError(
+            where,
+            f"expected more than 2k = {2 * k} training and held-out points (k < n/2 on each side); "
+            f"holdout {holdout} of n={ds.n} leaves {n_train} training and {n_test} held-out",
+        )
+    if ds.labels is not None:
+        classes = np.unique(np.asarray(ds.labels)).size
+        if min(n_train, n_test) < classes:
+            raise InputError(
+                where,
+                f"expected at least one point of each of the {classes} classes on each side of the "
+                f"stratified split; holdout {holdout} of n={ds.n} leaves {n_train} training "
+                f"and {n_test} held-out",
+            )
 
 
 def _check_labels(labels: Any, which: str, label: str) -> None:

@@ -15,11 +15,16 @@ from .tolerances import Tolerance
 
 @dataclass(frozen=True)
 class DatasetEntry:
-    """A dataset named in a suite: registry name, label and validated parameters."""
+    """A dataset named in a suite: registry name, label and validated parameters.
+
+    ``holdout`` is the share of points held out of every fit (a fraction in
+    (0, 1) or a count), ``None`` when every point is fitted.
+    """
 
     name: str
     use: str
     params: Mapping[str, Any]
+    holdout: float | int | None = None
 
 
 @dataclass(frozen=True)
@@ -28,7 +33,8 @@ class MethodEntry:
 
     ``family`` is the method's family (``neighbour`` for t-SNE and kin), read
     from the registry when the suite is parsed, so later readers need not
-    import a plug-in to know it.
+    import a plug-in to know it.  ``out_of_sample`` is ``""`` (held-out points
+    are placed by the method's own ``transform``) or ``"knn_interpolation"``.
     """
 
     name: str
@@ -36,6 +42,7 @@ class MethodEntry:
     params: Mapping[str, Any]
     grid: Mapping[str, tuple[Any, ...]]
     family: str = "other"
+    out_of_sample: str = ""
 
     @property
     def is_plugin(self) -> bool:

@@ -126,3 +126,15 @@ def test_seed_statistics_say_deterministic(runs: tuple[RunFolder, RunFolder]) ->
     assert np.isnan(pca["trustworthiness@5_sd"]) and np.isnan(pca["trustworthiness@5_lo"])
     assert rp["trustworthiness@5_sd"] > 0
     assert seeds_text(pca) == "3/3 deterministic" and seeds_text(rp) == "3/3"
+
+
+def test_cells_with_a_held_out_split_are_never_copied(tmp_path: Path) -> None:
+    # Each seed draws its own split (scikit-learn's train_test_split with random_state=seed),
+    # so a seed-free method fits different points for each seed.
+    path = tmp_path / "held.yaml"
+    path.write_text(SUITE.replace("seeds: 3\n", "seeds: 2\nholdout: 0.3\n"))
+    folder = execute_suite(path, tmp_path / "h", jobs=1, isolate=False).folder
+    s = folder.scores
+    assert (s["copy_of"].fillna("") == "").all()
+    pca = s[(s.method == "pca") & (s.dataset == "iris")].set_index("seed")
+    assert pca.loc[0, "heldout_trustworthiness@5"] != pca.loc[1, "heldout_trustworthiness@5"]

@@ -126,7 +126,14 @@ def test_knn_interpolation_is_recorded_and_labelled(held_run):
     assert np.isfinite(summary.loc[("iris", "mds_knn"), "heldout_trustworthiness@5"])
     ranking = (held_run / "ranking.md").read_text()
     assert "## Held-out points" in ranking and "| knn_interpolation" in ranking
-    assert "<h2>Held-out points</h2>" in (held_run / "report.html").read_text()
+    page = (held_run / "report.html").read_text()
+    assert "<h2>Held-out points</h2>" in page
+    # one sentence per dataset names the configuration with the best held-out trustworthiness
+    held = summary["heldout_trustworthiness@5"].dropna()
+    for dataset in ("iris", "roll"):
+        best = held.loc[dataset].idxmax()
+        assert f"On {dataset}, {best} places new points best" in ranking
+        assert f"On {dataset}, {best} places new points best" in page
 
 
 def test_a_method_without_a_map_ranks_last_on_a_heldout_measure(held_run):

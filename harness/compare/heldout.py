@@ -46,6 +46,30 @@ def with_gaps(ranked: pd.DataFrame, scores: pd.DataFrame) -> pd.DataFrame:
     return out.merge(extra, on=_KEYS, how="left")
 
 
+def best_generalisers(table: pd.DataFrame, k: int) -> list[str]:
+    """One sentence per dataset: the configuration whose new points keep their neighbourhoods best.
+
+    Judged by held-out trustworthiness at ``k`` (mean over seeds); configurations without an
+    out-of-sample map take no part.
+    """
+    column = f"{HELDOUT_PREFIX}trustworthiness@{k}"
+    if column not in table:
+        return []
+    out = []
+    for dataset, group in table.groupby("dataset", sort=False):
+        placed = group.dropna(subset=[column])
+        if placed.empty:
+            continue
+        best = placed.iloc[int(placed[column].to_numpy().argmax())]
+        gap = best.get(f"{GAP_PREFIX}trustworthiness@{k}")
+        gap_text = "" if gap is None or pd.isna(gap) else f", gap {gap:+.3f}"
+        out.append(
+            f"On {dataset}, {best['method']} places new points best (held-out trustworthiness@{k} "
+            f"{best[column]:.3f}{gap_text})."
+        )
+    return out
+
+
 def heldout_markdown(summary: pd.DataFrame, k: int) -> str:
     """The held-out section of ``ranking.md``: map, in-sample, held-out, gap and placement at one k."""
     if f"{GAP_PREFIX}trustworthiness@{k}" not in summary:
@@ -67,4 +91,6 @@ def heldout_markdown(summary: pd.DataFrame, k: int) -> str:
             row.append(number(r[a]))
         rows.append(row)
     right = [False] * 4 + [True] * (len(headers) - 4)
-    return "\n".join(["## Held-out points", "", GAP_SENTENCE, "", markdown_table(rows, headers, right), ""])
+    best = " ".join(best_generalisers(summary, k))
+    parts = ["## Held-out points", "", GAP_SENTENCE, "", markdown_table(rows, headers, right), ""]
+    return "\n".join([*parts, best, ""] if best else parts)

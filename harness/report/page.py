@@ -17,7 +17,7 @@ from string import Template
 
 import pandas as pd
 
-from ..compare.heldout import GAP_PREFIX, GAP_SENTENCE, with_gaps
+from ..compare.heldout import GAP_PREFIX, GAP_SENTENCE, best_generalisers, with_gaps
 from ..compare.tables import arrow
 from ..datasets import Dataset
 from ..metrics import higher_is_better
@@ -317,8 +317,11 @@ def _heldout(analysis: Analysis) -> str:
             + [_num(r.get(c)) for c in (t, f"heldout_{t}", f"{GAP_PREFIX}{t}", f"heldout_placement@{k}")]
         )
     headers = ["dataset", "method", "params", "out-of-sample map", f"{t} in-sample", "held-out", "gap"]
-    return f"<h2>Held-out points</h2><p class='small'>{_e(GAP_SENTENCE)}</p>" + table(
-        [*headers, f"placement@{k} ↑"], rows, [False] * 4 + [True] * 4
+    best = "".join(f"<p>{_e(sentence)}</p>" for sentence in best_generalisers(table_, k))
+    return (
+        f"<h2>Held-out points</h2><p class='small'>{_e(GAP_SENTENCE)}</p>"
+        + table([*headers, f"placement@{k} ↑"], rows, [False] * 4 + [True] * 4)
+        + best
     )
 
 

@@ -32,6 +32,13 @@ def analysis(run_dir):
     return analyse(run_dir)
 
 
+def drawn(run_dir: Path) -> int:
+    """Figures the page embeds: the fixed set and one per-point map per dataset of the run."""
+    maps = sorted(p.name for p in (run_dir / "figures").glob("points_*.png"))
+    assert maps == ["points_iris.png", "points_roll.png"]  # conftest.SMALL_SUITE's two datasets
+    return len(FIGURES) + len(maps)
+
+
 @pytest.mark.slow
 def test_every_file_is_written(run_dir):
     for name in ("report.html", "tables.md", "tables.tex"):
@@ -46,7 +53,7 @@ def test_page_is_self_contained(run_dir):
     page = (run_dir / "report.html").read_text(encoding="utf-8")
     assert not re.search(r"<script|<link|@import|url\(|src=\"(?!data:)", page)
     sources = re.findall(r'src="data:image/png;base64,([^"]+)"', page)
-    assert len(sources) == len(FIGURES)
+    assert len(sources) == drawn(run_dir)
     for data in sources:
         assert Image.open(io.BytesIO(base64.b64decode(data))).format == "PNG"
 
@@ -144,7 +151,7 @@ def test_html_renders_in_headless_chromium(run_dir, tmp_path):
     dom = subprocess.run(
         [browser, *flags, "--dump-dom", probed.as_uri()], capture_output=True, text=True, timeout=120
     ).stdout
-    n = len(FIGURES)
+    n = drawn(run_dir)
     assert f'data-decoded="{n}/{n}"' in dom
     shot = tmp_path / "shot.png"
     subprocess.run(

@@ -11,6 +11,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from enum import StrEnum
 from importlib.metadata import PackageNotFoundError, version
+from typing import Any
 
 
 def foldbench_version() -> str:
@@ -82,6 +83,17 @@ class Scoring:
     queries: int = 2000
     memory_bytes: int | None = None
     seed: int = 0
+
+    def engine_options(self) -> dict[str, Any]:
+        """The keyword arguments of :func:`harness.metrics.score` these settings fix (besides ``ks``)."""
+        return {
+            "seed": self.seed,
+            "pair_sample_above": self.pair_sample_above,
+            "n_pairs": self.pairs,
+            "estimate_above": self.estimate_above,
+            "n_queries": self.queries,
+            "memory_bytes": self.memory_bytes,
+        }
 
 
 @dataclass(frozen=True)

@@ -181,12 +181,7 @@ def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) ->
             metric="precomputed" if dataset.is_precomputed else "euclidean",
             labels=dataset.labels,
             latent=dataset.latent,
-            seed=scoring.seed,
-            pair_sample_above=scoring.pair_sample_above,
-            n_pairs=scoring.pairs,
-            estimate_above=scoring.estimate_above,
-            n_queries=scoring.queries,
-            memory_bytes=scoring.memory_bytes,
+            **scoring.engine_options(),
         )
     except Exception as exc:  # report, never crash the run over one cell's score
         return CellResult(

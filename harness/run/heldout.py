@@ -86,18 +86,7 @@ def heldout_values(
     if Y_test is None:
         return {}, None, record
     test = subset(dataset, test_rows)
-    among = score(
-        X_test,
-        Y_test,
-        ks=list(scoring.ks),
-        latent=test.latent,
-        seed=scoring.seed,
-        pair_sample_above=scoring.pair_sample_above,
-        n_pairs=scoring.pairs,
-        estimate_above=scoring.estimate_above,
-        n_queries=scoring.queries,
-        memory_bytes=scoring.memory_bytes,
-    )
+    among = score(X_test, Y_test, ks=list(scoring.ks), latent=test.latent, **scoring.engine_options())
     values = {PREFIX + k: v for k, v in among.values.items() if k.split("@", 1)[0] not in _NOT_AMONG_HELDOUT}
     labels = dataset.labels
     values.update(

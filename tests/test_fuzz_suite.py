@@ -27,6 +27,7 @@ SUITE_KEYS = {
     "run",
     "expect",
     "tolerances",
+    "holdout",
 }
 
 VALID = {

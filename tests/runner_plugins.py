@@ -93,3 +93,20 @@ class Chatty(_Base):
         for _ in range(5):
             logging.getLogger("chatty").warning("chatty says the same thing again")
         return self._first_columns(X)
+
+
+_HELD_LOCK = None
+
+
+class HoldsNamedLock(_Base):
+    """Keeps a process-wide named semaphore and is slow to exit, as numba's parallel layer is."""
+
+    def fit_transform(self, X):
+        import multiprocessing
+        from multiprocessing import util
+
+        global _HELD_LOCK
+        _HELD_LOCK = multiprocessing.get_context().RLock()
+        # runs before the semaphore's own finalizer (higher priority first): a slow shutdown
+        util.Finalize(None, time.sleep, args=(0.5,), exitpriority=100)
+        return self._first_columns(X)

@@ -347,6 +347,25 @@ def test_a_quiet_cell_leaves_no_log_and_fd_output_is_caught(tmp_path):
     assert record["warnings"] == ["chatty says the same thing again (5 times)"]
 
 
+def test_a_finished_cell_ends_on_its_own_and_leaks_no_named_semaphore(tmp_path):
+    # A cell that keeps a named semaphore for the life of its process (numba's parallel layer
+    # does, used by pacmap and trimap) must be let to run its exit handlers, which unlink it;
+    # killing it at once left one "leaked semaphore" warning per cell at the end of the run
+    # (multiprocessing.resource_tracker's own check, Python standard library).
+    methods = "  - use: runner_plugins:HoldsNamedLock\n    name: holder\n"
+    suite = suite_file(tmp_path, methods, seeds=2)
+    res = subprocess.run(
+        foldbench("run", str(suite), "--out", str(tmp_path / "out"), "--no-report", "--quiet", "--no-cache"),
+        env=env_for(tmp_path),
+        capture_output=True,
+        text=True,
+        timeout=HANG,
+    )
+    assert res.returncode == 0, res.stderr
+    assert "2 cells (2 ok)" in res.stdout
+    assert "leaked semaphore" not in res.stderr
+
+
 def test_tally_and_capped_text_plumbing():
     import logging
 

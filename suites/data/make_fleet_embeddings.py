@@ -1,4 +1,4 @@
-"""Write the fleet demo as a table and three embeddings of it made "elsewhere", for suites/own_embeddings.yaml.
+"""Write the fleet demo as a table and three embeddings of it made "elsewhere" (own_embeddings.yaml).
 
 The fleet is our invented scenario of sensor-laden machine tools (``machine_fleet``).  The three
 embedding files stand for what other pipelines export: a PCA as ``.npy``, a t-SNE as a CSV with
@@ -9,9 +9,8 @@ script).
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import sys
+from pathlib import Path
 
 import numpy as np
 import pandas as pd

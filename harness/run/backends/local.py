@@ -57,6 +57,8 @@ _STAGE_PREFIX = "foldbench-data-"
 _STAGE_LOCK = ".owner.lock"
 #: Seconds to wait for the rest of a finished cell's output.
 _OUTPUT_GRACE = 5.0
+#: Seconds a child that has answered gets to run its exit handlers before its group is killed.
+_EXIT_GRACE = 2.0
 
 
 # ---------------------------------------------------------------- staging folders
@@ -230,10 +232,14 @@ def _supervise(
             end.close()
     sink = CappedText()
     pump = _pump(output_end, sink) if output_end is not None else None
+    answered = False
     try:
-        return _await(cell, proc, receive, execution.time_limit, stop, halt)
+        result, answered = _await(cell, proc, receive, execution.time_limit, stop, halt)
+        return result
     finally:
         receive.close()
+        if answered:  # let it end on its own: its exit handlers release named semaphores (numba's)
+            proc.join(_EXIT_GRACE)
         _orphans.kill_group(proc.pid)  # the cell and anything it started
         if proc.is_alive():
             proc.kill()
@@ -253,26 +259,31 @@ def _await(
     time_limit: float | None,
     stop: threading.Event,
     halt: threading.Event,
-) -> CellResult:
-    """The child's result, or why there is none (time limit, stop request, death)."""
+) -> tuple[CellResult, bool]:
+    """The child's result, or why there is none (time limit, stop request, death).
+
+    The flag says whether the child itself answered (and so is ending normally).
+    """
     t0 = None  # the clock starts when the child is running, not while the fork server warms up
     while True:
         waited = 0.0 if t0 is None else time.perf_counter() - t0
         if time_limit is not None and waited >= time_limit:
-            return CellResult(cell, CellStatus.TIMEOUT, f"stopped after the time limit of {time_limit:g} s")
+            return CellResult(
+                cell, CellStatus.TIMEOUT, f"stopped after the time limit of {time_limit:g} s"
+            ), False
         if stop.is_set() or halt.is_set():
-            return CellResult(cell, CellStatus.INTERRUPTED, "stopped: the run was interrupted")
+            return CellResult(cell, CellStatus.INTERRUPTED, "stopped: the run was interrupted"), False
         step = _POLL if time_limit is None or t0 is None else min(_POLL, time_limit - waited)
         if receive.poll(step):
             try:
                 message = receive.recv()
             except (EOFError, OSError):
                 proc.join(5)
-                return CellResult(cell, CellStatus.CRASHED, _death(proc.exitcode))
+                return CellResult(cell, CellStatus.CRASHED, _death(proc.exitcode)), False
             if isinstance(message, str) and message == _STARTED:
                 t0 = time.perf_counter()
                 continue
-            return message
+            return message, True
 
 
 def _pump(source: Connection, sink: CappedText) -> threading.Thread:

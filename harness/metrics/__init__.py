@@ -32,6 +32,7 @@ from ._labels import knn_accuracy, silhouette
 from ._local import PER_K, collect, curve_table
 from ._memory import block_rows, default_memory_bytes
 from ._neighbours import knn_overlap
+from ._prepared import DataSide, make_data_side
 from ._ranks import rank_blocks
 from ._rnx_area import rnx_area
 from ._standard import standard_distances, standard_points
@@ -39,6 +40,7 @@ from ._standard import standard_distances, standard_points
 __all__ = [
     "HELDOUT_PREFIX",
     "MEASURES",
+    "DataSide",
     "MeasureInfo",
     "MeasureResult",
     "coranking_curve",
@@ -48,6 +50,7 @@ __all__ = [
     "measure_stem",
     "placement_measures",
     "pointwise",
+    "prepare_data",
     "score",
 ]
 
@@ -185,6 +188,7 @@ def score(
     n_queries: int = 2000,
     memory_bytes: int | None = None,
     curve_k_max: int | None = None,
+    prepared: DataSide | None = None,
 ) -> MeasureResult:
     """Score an embedding with every applicable measure.
 
@@ -223,6 +227,10 @@ def score(
         Largest K of the co-ranking curve; default ``max(ks)``.  ``rnx_auc``
         always covers K = 1..n-2 (exact up to about 5800 points, estimated from
         sampled query points above; see :mod:`._rnx_area`), ``rnx_auc@k`` K = 1..k.
+    prepared : DataSide, optional
+        :func:`prepare_data` of the same ``X``, ``metric``, ``latent`` and
+        settings: the data's side, made once for many embeddings of one dataset
+        (the values do not change).  Refused when its size or settings differ.
 
     Returns
     -------
@@ -252,6 +260,16 @@ def score(
         raise InputError("n_pairs", f"at least {2 * JACKKNIFE_GROUPS}, got {n_pairs}")
     if n_queries < 2:
         raise InputError("n_queries", f"at least 2, got {n_queries}")
+    settings = {
+        "seed": seed,
+        "pair_sample_above": pair_sample_above,
+        "n_pairs": n_pairs,
+        "estimate_above": estimate_above,
+        "n_queries": n_queries,
+        "memory_bytes": memory_bytes,
+    }
+    if prepared is not None:
+        prepared.check(n, settings)
     if memory_bytes is None:
         memory_bytes = default_memory_bytes()
     query_seed, pair_seed, area_seed = np.random.SeedSequence(seed).spawn(3)
@@ -267,7 +285,8 @@ def score(
 
     values, intervals = local_estimates(local.terms, n, k_curve, sampled)
     area_rng = np.random.default_rng(area_seed)
-    area, area_sampled = rnx_area(*rows, queries, sampled, n_queries, area_rng)
+    area_ranks = None if prepared is None else prepared.area_ranks
+    area, area_sampled = rnx_area(*rows, queries, sampled, n_queries, area_rng, area_ranks)
     # The full-range area (K = 1..n-2) gets its interval, when sampled, from the same rule as the others.
     area_value, area_interval = local_estimates({"rnx_auc": area}, n, n - 2, area_sampled)
     values.update(area_value)
@@ -282,6 +301,7 @@ def score(
         n_pairs=n_pairs,
         seed=int(pair_seed.generate_state(1)[0]),
         memory_bytes=memory_bytes,
+        pairs=None if prepared is None else prepared.pairs,
     )
     values.update(g_values)
     intervals.update({name: (g_values[name] - hw, g_values[name] + hw) for name, hw in g_halfwidths.items()})
@@ -300,6 +320,47 @@ def score(
     big_k, q, r = curve_table(local.overlap_sum, local.n_queries, n)
     curve = pd.DataFrame({"K": big_k, "Q_NX": q, "R_NX": r})
     return MeasureResult(values, intervals, frozenset(intervals), curve, _points(local.terms, queries, ks))
+
+
+def prepare_data(
+    X: object,
+    *,
+    metric: str = "euclidean",
+    latent: object = None,
+    seed: int = 0,
+    pair_sample_above: int = 5000,
+    n_pairs: int = 200_000,
+    estimate_above: int | None = None,
+    n_queries: int = 2000,
+    memory_bytes: int | None = None,
+) -> DataSide:
+    """The data's side of :func:`score`, made once to score many embeddings of the same data.
+
+    Parameters
+    ----------
+    X, metric, latent, seed, pair_sample_above, n_pairs, estimate_above, n_queries, memory_bytes
+        As for :func:`score`; pass the same values there with ``prepared=``.
+
+    Returns
+    -------
+    DataSide
+        The pairs of the global measures with their data (and latent) distances
+        and ranks, and, when the full-range R_NX area is exact, every point's
+        data rank row (``n * n`` 4-byte integers).
+    """
+    rows = _matrix(X, "X").shape[0]
+    x_points, x_matrix, _ = _inputs(X, np.zeros((rows, 1)), metric)
+    if latent is not None:
+        latent = standard_points(_matrix(latent, "latent"))
+    settings = {
+        "seed": seed,
+        "pair_sample_above": pair_sample_above,
+        "n_pairs": n_pairs,
+        "estimate_above": estimate_above,
+        "n_queries": n_queries,
+        "memory_bytes": memory_bytes,
+    }
+    return make_data_side(x_points, x_matrix, latent, settings)
 
 
 def pointwise(X: object, Y: object, k: int = 10, metric: str = "euclidean") -> pd.DataFrame:

@@ -16,6 +16,7 @@ rank without a group is its rank less the group's items below it).
 from __future__ import annotations
 
 import logging
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
@@ -79,14 +80,29 @@ def sammon_stress(d: np.ndarray, e: np.ndarray) -> float:
 def spearman(a: np.ndarray, b: np.ndarray, what: str) -> float:
     """Spearman rank correlation of two distance lists (average ranks for ties).
 
+    The Pearson correlation of the average ranks, as :func:`scipy.stats.spearmanr` defines it.
+
     Raises
     ------
     ValueError
         When either list is constant (the correlation is undefined).
     """
-    if np.ptp(a) == 0.0 or np.ptp(b) == 0.0:
+    return rank_correlation(average_ranks(a), average_ranks(b), what)
+
+
+def average_ranks(a: np.ndarray) -> np.ndarray:
+    """1-based ranks with ties given their mean rank (``scipy.stats.rankdata(a, "average")``)."""
+    return _ranks_of(_sorted_ranks(a))
+
+
+def rank_correlation(ra: np.ndarray, rb: np.ndarray, what: str) -> float:
+    """Pearson correlation of two rank lists; ``what`` names the measure when it is undefined."""
+    x = ra - ra.mean()
+    y = rb - rb.mean()
+    sxx, syy = float(x @ x), float(y @ y)
+    if sxx == 0.0 or syy == 0.0:
         raise ValueError(f"{what} is undefined: one set of distances is constant")
-    return float(stats.spearmanr(a, b).statistic)
+    return float(np.clip(float(x @ y) / np.sqrt(sxx * syy), -1.0, 1.0))
 
 
 def _condensed(points: np.ndarray | None, matrix: np.ndarray | None) -> np.ndarray:
@@ -155,8 +171,11 @@ def _sammon_leave_out(d: np.ndarray, e: np.ndarray) -> np.ndarray:
 
 
 def _sorted_ranks(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Sort order, each item's place in it, and each sorted place's tie block ``[first, last)``."""
-    order = np.argsort(a, kind="stable")
+    """Sort order, each item's place in it, and each sorted place's tie block ``[first, last)``.
+
+    The order inside a block of ties is arbitrary: everything read from it counts whole blocks.
+    """
+    order = np.argsort(a)
     place = np.empty(len(a), dtype=np.intp)
     place[order] = np.arange(len(a))
     sorted_a = a[order]
@@ -176,14 +195,23 @@ def _ranks_without(ranked: tuple[np.ndarray, ...], low: int, high: int) -> np.nd
     return (before + (inside + 1) / 2.0)[place]
 
 
-def _spearman_leave_out(a: np.ndarray, b: np.ndarray, what: str) -> np.ndarray:
+def _spearman_leave_out(
+    a: np.ndarray,
+    b: np.ndarray,
+    what: str,
+    ranked_a: tuple[np.ndarray, ...] | None = None,
+    ranked_b: tuple[np.ndarray, ...] | None = None,
+) -> np.ndarray:
     """Spearman's rho without each group, ranking once (exactly the re-ranked values).
 
     Without group ``G`` an item's average rank counts only the items outside
     ``G``: along the one sorted order, the kept items before its tie block plus
     half of the kept items in it, read off a running count of ``G``'s members.
     """
-    ranked = (_sorted_ranks(a), _sorted_ranks(b))
+    ranked = (
+        _sorted_ranks(a) if ranked_a is None else ranked_a,
+        _sorted_ranks(b) if ranked_b is None else ranked_b,
+    )
     out = np.empty(JACKKNIFE_GROUPS)
     keep = np.ones(len(a), dtype=bool)
     for g, members in enumerate(_groups(len(a))):
@@ -200,6 +228,89 @@ def _spearman_leave_out(a: np.ndarray, b: np.ndarray, what: str) -> np.ndarray:
     return out
 
 
+@dataclass(frozen=True)
+class DataPairs:
+    """The data's side of the pair measures: which pairs, their data (and latent) distances, ranked.
+
+    It depends only on the data and the scoring settings, so a run computes it
+    once per dataset and every cell of that dataset reads it.
+
+    Attributes
+    ----------
+    exact : bool
+        All ``n (n - 1) / 2`` pairs in :func:`scipy.spatial.distance.pdist` order; else a sample.
+    i, j : ndarray of int or None
+        The sampled pairs (``None`` when exact).
+    d, d_ranks : ndarray
+        Data distance of each pair and its average rank.
+    d_sorted : tuple of ndarray or None
+        :func:`_sorted_ranks` of ``d`` for the jackknife (sampled pairs only).
+    lat, lat_ranks, lat_sorted : ndarray or None
+        The same for the latent coordinates, when the data have them.
+    """
+
+    exact: bool
+    i: np.ndarray | None
+    j: np.ndarray | None
+    d: np.ndarray
+    d_ranks: np.ndarray
+    d_sorted: tuple[np.ndarray, ...] | None = None
+    lat: np.ndarray | None = None
+    lat_ranks: np.ndarray | None = None
+    lat_sorted: tuple[np.ndarray, ...] | None = None
+
+
+def data_pairs(
+    x_points: np.ndarray | None,
+    x_matrix: np.ndarray | None,
+    latent: np.ndarray | None,
+    n: int,
+    *,
+    pair_sample_above: int,
+    n_pairs: int,
+    seed: int,
+    memory_bytes: int,
+) -> DataPairs:
+    """The pairs the global measures use and everything about them that needs only the data.
+
+    Parameters are those of :func:`global_measures` (``n`` is the number of points).
+    """
+    n_all = n * (n - 1) // 2
+    exact = n <= pair_sample_above
+    if exact and EXACT_BYTES_PER_PAIR * n_all > memory_bytes:
+        log.info("all %d pairs need more than the memory budget; sampling %d pairs", n_all, n_pairs)
+        exact = False
+    if exact:
+        i = j = None
+        d = _condensed(x_points, x_matrix)
+        lat = pdist(latent) if latent is not None else None
+    else:
+        rng = np.random.default_rng(seed)
+        i = rng.integers(0, n, size=n_pairs)
+        j = rng.integers(0, n - 1, size=n_pairs)
+        j += j >= i  # uniform over the other n - 1 points
+        d = pair_distances(x_points, x_matrix, i, j)
+        lat = pair_distances(latent, None, i, j) if latent is not None else None
+    d_sorted = _sorted_ranks(d)
+    lat_sorted = None if lat is None else _sorted_ranks(lat)
+    return DataPairs(
+        exact,
+        i,
+        j,
+        d,
+        _ranks_of(d_sorted),
+        None if exact else d_sorted,
+        lat,
+        None if lat_sorted is None else _ranks_of(lat_sorted),
+        None if exact else lat_sorted,
+    )
+
+
+def _ranks_of(ranked: tuple[np.ndarray, ...]) -> np.ndarray:
+    _, place, first, last = ranked
+    return ((first + last + 1) / 2.0)[place]
+
+
 def global_measures(
     x_points: np.ndarray | None,
     x_matrix: np.ndarray | None,
@@ -210,6 +321,7 @@ def global_measures(
     n_pairs: int,
     seed: int,
     memory_bytes: int,
+    pairs: DataPairs | None = None,
 ) -> tuple[dict[str, float], dict[str, float]]:
     """Stress, Sammon stress, Shepard correlation and (with latent) latent correlation.
 
@@ -229,6 +341,8 @@ def global_measures(
         Seed of the pair sample.
     memory_bytes : int
         The exact path falls back to sampling when its pair arrays would not fit.
+    pairs : DataPairs, optional
+        The data's side made by :func:`data_pairs` with these settings (computed here when absent).
 
     Returns
     -------
@@ -236,40 +350,43 @@ def global_measures(
     halfwidths : dict of str to float
         95% half-widths; empty when the values are exact.
     """
-    n = y.shape[0]
-    n_all = n * (n - 1) // 2
-    exact = n <= pair_sample_above
-    if exact and EXACT_BYTES_PER_PAIR * n_all > memory_bytes:
-        log.info("all %d pairs need more than the memory budget; sampling %d pairs", n_all, n_pairs)
-        exact = False
-    if exact:
-        d = _condensed(x_points, x_matrix)
+    if pairs is None:
+        pairs = data_pairs(
+            x_points,
+            x_matrix,
+            latent,
+            y.shape[0],
+            pair_sample_above=pair_sample_above,
+            n_pairs=n_pairs,
+            seed=seed,
+            memory_bytes=memory_bytes,
+        )
+    d, lat = pairs.d, pairs.lat
+    if pairs.exact:
         e = pdist(y)
-        lat = pdist(latent) if latent is not None else None
     else:
-        rng = np.random.default_rng(seed)
-        i = rng.integers(0, n, size=n_pairs)
-        j = rng.integers(0, n - 1, size=n_pairs)
-        j += j >= i  # uniform over the other n - 1 points
-        d = pair_distances(x_points, x_matrix, i, j)
-        e = pair_distances(y, None, i, j)
-        lat = pair_distances(latent, None, i, j) if latent is not None else None
-
+        assert pairs.i is not None and pairs.j is not None
+        e = pair_distances(y, None, pairs.i, pairs.j)
+    e_ranked = _sorted_ranks(e)
+    e_ranks = _ranks_of(e_ranked)
     values = {
         "stress": stress(d, e),
         "sammon_stress": sammon_stress(d, e),
-        "shepard_spearman": spearman(d, e, "shepard_spearman"),
+        "shepard_spearman": rank_correlation(pairs.d_ranks, e_ranks, "shepard_spearman"),
     }
     if lat is not None:
-        values["latent_spearman"] = spearman(lat, e, "latent_spearman")
+        assert pairs.lat_ranks is not None
+        values["latent_spearman"] = rank_correlation(pairs.lat_ranks, e_ranks, "latent_spearman")
     halfwidths: dict[str, float] = {}
-    if not exact:
+    if not pairs.exact:
         replicates = {
             "stress": _stress_leave_out(d, e),
             "sammon_stress": _sammon_leave_out(d, e),
-            "shepard_spearman": _spearman_leave_out(d, e, "shepard_spearman"),
+            "shepard_spearman": _spearman_leave_out(d, e, "shepard_spearman", pairs.d_sorted, e_ranked),
         }
         if lat is not None:
-            replicates["latent_spearman"] = _spearman_leave_out(lat, e, "latent_spearman")
+            replicates["latent_spearman"] = _spearman_leave_out(
+                lat, e, "latent_spearman", pairs.lat_sorted, e_ranked
+            )
         halfwidths = {name: _halfwidth(r) for name, r in replicates.items()}
     return values, halfwidths

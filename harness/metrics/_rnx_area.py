@@ -56,7 +56,20 @@ def _ranks(dist: np.ndarray, rows: np.ndarray) -> np.ndarray:
     return ranks
 
 
-def area_terms(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray) -> np.ndarray:
+def data_rank_rows(data: DistanceRows) -> np.ndarray:
+    """Every point's whole rank row in the data space, (n, n) int32 (query 0), for :func:`area_terms`."""
+    n = data.n
+    out = np.empty((n, n), dtype=np.int32)
+    step = max(1, _BLOCK_ELEMENTS // n)
+    for start in range(0, n, step):
+        rows = np.arange(start, min(n, start + step), dtype=np.intp)
+        out[rows] = _ranks(data.block(rows), rows)
+    return out
+
+
+def area_terms(
+    data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, data_ranks: np.ndarray | None = None
+) -> np.ndarray:
     """Per-point area under R_NX(K), K = 1..n-2, weights 1/K.
 
     Parameters
@@ -65,6 +78,8 @@ def area_terms(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray)
         Distance rows of the two spaces (same ``n >= 3``).
     queries : ndarray of int
         Query points.
+    data_ranks : ndarray of shape (n, n), optional
+        :func:`data_rank_rows` of ``data``, made once for every embedding of it.
 
     Returns
     -------
@@ -84,7 +99,8 @@ def area_terms(data: DistanceRows, embedding: DistanceRows, queries: np.ndarray)
     step = max(1, _BLOCK_ELEMENTS // n)
     for start in range(0, len(queries), step):
         rows = np.asarray(queries[start : start + step], dtype=np.intp)
-        both = np.maximum(_ranks(data.block(rows), rows), _ranks(embedding.block(rows), rows))
+        known = _ranks(data.block(rows), rows) if data_ranks is None else data_ranks[rows]
+        both = np.maximum(known, _ranks(embedding.block(rows), rows))
         # The query (rank 0 in both) is not its own neighbour: take out its suffix(0) = 0.
         out[start : start + len(rows)] = suffix[both].sum(axis=1) + c0
     return out
@@ -97,6 +113,7 @@ def rnx_area(
     sampled: bool,
     n_queries: int,
     rng: np.random.Generator,
+    data_ranks: np.ndarray | None = None,
 ) -> tuple[np.ndarray, bool]:
     """Per-point terms of the full-range area: every point when affordable, else a sample.
 
@@ -112,6 +129,8 @@ def rnx_area(
         Sample size asked for.
     rng : numpy.random.Generator
         Draws the sample when one is needed.
+    data_ranks : ndarray, optional
+        :func:`data_rank_rows` of ``data`` (used for the exact area).
 
     Returns
     -------
@@ -122,7 +141,7 @@ def rnx_area(
     """
     n = data.n
     if not sampled and exact_affordable(n):
-        return area_terms(data, embedding, np.arange(n)), False
+        return area_terms(data, embedding, np.arange(n), data_ranks), False
     pool = queries if sampled else np.arange(n)
     m = sample_size(n, n_queries)
     if len(pool) > m:

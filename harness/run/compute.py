@@ -17,7 +17,7 @@ import numpy as np
 from ..config import CellStatus, Scoring
 from ..datasets import Dataset
 from ..methods import DegenerateEmbedding, MethodSpec, fit_model, get_method_spec
-from ..metrics import score
+from ..metrics import DataSide, score
 from ..text import exception_line
 from .cells import Cell, CellResult, KnownFit
 from .heldout import full_embedding, heldout_values, points_in_rows, split_rows, subset
@@ -62,7 +62,12 @@ def _reset_peak() -> bool:
 
 
 def compute_cell(
-    cell: Cell, dataset: Dataset, scoring: Scoring, known: KnownFit | None = None, roots: tuple[str, ...] = ()
+    cell: Cell,
+    dataset: Dataset,
+    scoring: Scoring,
+    known: KnownFit | None = None,
+    roots: tuple[str, ...] = (),
+    prepared: DataSide | None = None,
 ) -> CellResult:
     """Fit the cell's method on its dataset (or use ``known``), check the embedding, score it.
 
@@ -78,6 +83,9 @@ def compute_cell(
         An earlier fit of the same cell; it is scored instead of fitting again.
     roots : tuple of str
         Folders a plug-in method may be imported from (the suite's).
+    prepared : DataSide, optional
+        The dataset's data side for ``scoring`` (made once for all its cells;
+        the values do not change).  Cells that hold points out do not use it.
 
     Returns
     -------
@@ -88,20 +96,20 @@ def compute_cell(
     if cell.holdout is not None:
         return _compute_heldout(cell, dataset, scoring, roots)
     if known is not None:
-        result = score_cell(cell, dataset, known.embedding, scoring)
+        result = score_cell(cell, dataset, known.embedding, scoring, prepared)
         if result.status == CellStatus.OK:
             result.fit_seconds, result.fit_peak_mb = known.fit_seconds, known.fit_peak_mb
             result.from_cache = True
             return result
         # a known fit that cannot be scored is not trusted: fit again
-        refit = compute_cell(cell, dataset, scoring, None, roots)
+        refit = compute_cell(cell, dataset, scoring, None, roots, prepared)
         refit.warnings += (f"the cached embedding was not used ({result.error}); fitted again",)
         return refit
     fitted = _fit(cell, dataset, roots)
     if isinstance(fitted, CellResult):
         return fitted
     _spec, _estimator, Y, fit_seconds, peak_mb = fitted
-    result = score_cell(cell, dataset, Y, scoring)
+    result = score_cell(cell, dataset, Y, scoring, prepared)
     result.fit_seconds = fit_seconds
     result.fit_peak_mb = peak_mb
     return result
@@ -169,8 +177,10 @@ def _fit(
     return spec, estimator, Y, fit_seconds, meter.peak_mb
 
 
-def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) -> CellResult:
-    """Score a finished embedding (a new fit or a known one)."""
+def score_cell(
+    cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring, prepared: DataSide | None = None
+) -> CellResult:
+    """Score a finished embedding (a new fit or a known one), with the dataset's data side if given."""
     data = dataset.distances if dataset.is_precomputed else dataset.X
     t0 = time.perf_counter()
     try:
@@ -181,6 +191,7 @@ def score_cell(cell: Cell, dataset: Dataset, Y: np.ndarray, scoring: Scoring) ->
             metric="precomputed" if dataset.is_precomputed else "euclidean",
             labels=dataset.labels,
             latent=dataset.latent,
+            prepared=prepared,
             **scoring.engine_options(),
         )
     except Exception as exc:  # report, never crash the run over one cell's score

@@ -40,6 +40,8 @@ from threadpoolctl import threadpool_limits
 from ...config import CellStatus, Scoring
 from ...datasets import Dataset
 from ...methods import thread_budget
+from ...metrics import DataSide
+from .. import dataside
 from ..cells import Cell, CellResult, KnownFit
 from ..compute import compute_cell
 from . import _orphans
@@ -105,8 +107,10 @@ def sweep_staging(root: str | Path | None = None) -> int:
 # ---------------------------------------------------------------- datasets for children
 
 
-def stage_datasets(datasets: dict[str, Dataset], folder: Path) -> dict[str, Path]:
-    """Write each dataset once as ``.npy`` files that children memory-map."""
+def stage_datasets(
+    datasets: dict[str, Dataset], folder: Path, sides: dict[str, DataSide] | None = None
+) -> dict[str, Path]:
+    """Write each dataset once as ``.npy`` files that children memory-map, with its data side if given."""
     places = {}
     for name, ds in datasets.items():
         where = folder / name
@@ -115,14 +119,27 @@ def stage_datasets(datasets: dict[str, Dataset], folder: Path) -> dict[str, Path
         np.save(where / "array.npy", np.ascontiguousarray(array, dtype=np.float64))
         meta = replace(ds, X=None, distances=None)
         (where / "meta.pkl").write_bytes(pickle.dumps((ds.is_precomputed, meta)))
+        if sides and name in sides:
+            dataside.stage(sides[name], where)
         places[name] = where
     return places
 
 
-def _unstage(where: Path) -> Dataset:
+def _unstage(where: Path) -> tuple[Dataset, DataSide | None]:
     precomputed, meta = pickle.loads((where / "meta.pkl").read_bytes())
     array = np.load(where / "array.npy", mmap_mode="r")
-    return replace(meta, distances=array) if precomputed else replace(meta, X=array)
+    dataset = replace(meta, distances=array) if precomputed else replace(meta, X=array)
+    return dataset, dataside.load(where)
+
+
+def shared_sides(cells: list[Cell], datasets: dict[str, Dataset], scoring: Scoring) -> dict[str, DataSide]:
+    """The data side of every dataset that two or more cells score in full (see :mod:`..dataside`)."""
+    sides = {}
+    for name in sorted(dataside.wanted(cells)):
+        side = dataside.make(datasets[name], scoring)
+        if side is not None:
+            sides[name] = side
+    return sides
 
 
 def _child(
@@ -153,7 +170,8 @@ def _child(
     root.handlers[:] = [tally, shown]
     root.setLevel(logging.WARNING)
     with threadpool_limits(limits=threads), thread_budget(threads):
-        result = compute_cell(cell, _unstage(where), scoring, known, roots)
+        dataset, side = _unstage(where)
+        result = compute_cell(cell, dataset, scoring, known, roots, None if cell.holdout else side)
     result.warnings = tally.lines()
     sys.stdout.flush()
     sys.stderr.flush()
@@ -334,12 +352,14 @@ class LocalBackend:
         if not cells:
             return
         if not execution.isolate:
+            sides = shared_sides(cells, datasets, scoring)
             for cell in cells:
                 if stop.is_set():
                     yield CellResult(cell, CellStatus.INTERRUPTED, "not started: the run was interrupted")
                     continue
+                side = None if cell.holdout is not None else sides.get(cell.dataset)
                 yield compute_cell(
-                    cell, datasets[cell.dataset], scoring, known.get(cell.key), execution.plugin_roots
+                    cell, datasets[cell.dataset], scoring, known.get(cell.key), execution.plugin_roots, side
                 )
             return
         yield from self._isolated(cells, datasets, scoring, execution, known, stop)
@@ -359,7 +379,8 @@ class LocalBackend:
         _start_fork_server()
         halt = threading.Event()  # set when the consumer stops early: running cells end at once
         with staging_folder() as folder:
-            places = stage_datasets({c.dataset: datasets[c.dataset] for c in cells}, folder)
+            sides = shared_sides(cells, datasets, scoring)
+            places = stage_datasets({c.dataset: datasets[c.dataset] for c in cells}, folder, sides)
             tasks = (
                 delayed(_supervise)(
                     c, places[c.dataset], scoring, threads, execution, known.get(c.key), stop, halt

@@ -2,8 +2,8 @@
 
 Two suites, each run by three set-ups, all in one process:
 
-* ``local``          harness.runner.execute (a fork-server child per cell);
-* ``dask (start)``   harness.distributed.execute_on_dask with no scheduler: it starts a
+* ``local``          harness.run.backends.execute (a fork-server child per cell);
+* ``dask (start)``   the same with ``backend="dask"`` and no scheduler: it starts a
                      local cluster of ``jobs`` worker processes and closes it, inside the timing;
 * ``dask (running)`` the same against a cluster started beforehand (steady state).
 
@@ -34,10 +34,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from harness.cells import plan  # noqa: E402
-from harness.distributed import execute_on_dask  # noqa: E402
-from harness.runner import Execution, execute  # noqa: E402
-
+from harness.run.backends import Execution, execute  # noqa: E402
+from harness.run.cells import plan  # noqa: E402
 from harness.suite import load_datasets, load_suite, parse_suite  # noqa: E402
 
 QUICK = """\
@@ -99,10 +97,11 @@ def _suite_rows(name: str, suite, jobs: int, address: str) -> list[dict]:
     datasets = load_datasets(suite)
     cells, _ = plan(suite, datasets)
     execution = Execution(jobs=jobs)
+    on_cluster = Execution(jobs=jobs, scheduler=address)
     setups = [
         ("local", lambda c, d, s: execute(c, d, s, execution)),
-        ("dask (start)", lambda c, d, s: execute_on_dask(c, d, s, execution)),
-        ("dask (running)", lambda c, d, s: execute_on_dask(c, d, s, execution, scheduler=address)),
+        ("dask (start)", lambda c, d, s: execute(c, d, s, execution, backend="dask")),
+        ("dask (running)", lambda c, d, s: execute(c, d, s, on_cluster, backend="dask")),
     ]
     rows = []
     for label, run in setups:

@@ -160,6 +160,7 @@ def build_mds(
     accepts_distances=True,
     quadratic_memory=True,
     source="Sammon 1969 (own implementation)",
+    seed_free=lambda params: params.get("init", "pca") == "pca",
 )
 def build_sammon(
     n_components: int, seed: int, precomputed: bool, *, init: str, max_iter: int, tol: float

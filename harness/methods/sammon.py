@@ -118,7 +118,7 @@ class SammonMapping(BaseEstimator):
         else:
             Y = rng.standard_normal((D.shape[0], self.n_components))
 
-        Y, stress, history = _minimise(D, Y, self.max_iter, self.tol, rng)
+        Y, stress, history = _minimise(D, Y, self.max_iter, self.tol)
         self.embedding_ = np.ldexp(Y * scale, exponent)
         self.stress_ = float(stress)
         self.n_iter_ = len(history) - 1
@@ -245,14 +245,19 @@ class _SammonObjective:
         return step
 
 
+#: Seed of the fixed pattern that separates items starting on the same point.
+_NUDGE_SEED = 0
+
+
 def _minimise(
-    D: np.ndarray, Y: np.ndarray, max_iter: int, tol: float, rng: np.random.RandomState
+    D: np.ndarray, Y: np.ndarray, max_iter: int, tol: float
 ) -> tuple[np.ndarray, float, list[float]]:
     """Run the safeguarded pseudo-Newton iteration from ``Y``; ``D`` has mean 1."""
     objective = _SammonObjective(D)
     if objective.collapsed(Y):
-        # Two distinct items start on the same point; nudge the start.
-        Y = Y + 1e-6 * rng.standard_normal(Y.shape)
+        # Two distinct items start on the same point; nudge the start by a fixed pattern (not a
+        # draw from the fit's seed: from a PCA start the mapping stays independent of the seed).
+        Y = Y + 1e-6 * np.random.RandomState(_NUDGE_SEED).standard_normal(Y.shape)
     current = objective.stress(Y)
     history = [current]
     fraction = 0.5

@@ -295,3 +295,33 @@ def test_without_a_grid_the_ranking_across_is_the_mean_of_dataset_ranks(quicksta
     for method, value in expected.items():
         assert shown[method]["mean rank"] == f"{value:.2f}"
         assert shown[method]["datasets"] == str(summary["dataset"].nunique())
+
+
+def test_seed_intervals_are_clipped_to_the_measure_range_and_are_students_t_inside_it():
+    # Reference: the Student t interval of a mean, mean ± t_{0.975, n-1} s / sqrt(n) (Student 1908),
+    # from scipy.stats.t; a mean of seconds cannot be negative nor a trustworthiness above 1
+    # (Venna and Kaski 2001 normalise it to [0, 1]), so the bounds stop there.
+    from scipy import stats
+
+    from harness.compare import aggregate
+
+    fit = np.array([0.001, 0.002, 0.060])
+    trust = np.array([0.9990, 0.9995, 0.9900])
+    scores = pd.DataFrame(
+        {
+            "dataset": "d",
+            "method": "m",
+            "params": "-",
+            "seed": [0, 1, 2],
+            "status": "ok",
+            "copy_of": "",
+            "fit_seconds": fit,
+            "trustworthiness@10": trust,
+        }
+    )
+    row = aggregate(scores).iloc[0]
+    half = lambda v: stats.t.ppf(0.975, len(v) - 1) * v.std(ddof=1) / np.sqrt(len(v))  # noqa: E731
+    assert fit.mean() - half(fit) < 0 and row["fit_seconds_lo"] == 0.0
+    assert row["fit_seconds_hi"] == pytest.approx(fit.mean() + half(fit), rel=1e-12)
+    assert trust.mean() + half(trust) > 1 and row["trustworthiness@10_hi"] == 1.0
+    assert row["trustworthiness@10_lo"] == pytest.approx(trust.mean() - half(trust), rel=1e-12)

@@ -5,7 +5,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import pandas as pd
 import pytest
 from scipy import stats as sps
 from scipy.spatial import procrustes
@@ -22,7 +21,6 @@ from harness.compare.stats import (
     nemenyi_q,
     pareto_front,
     rank_blocks,
-    seed_statistics,
     t_interval,
 )
 from harness.errors import InputError
@@ -117,24 +115,6 @@ def test_bootstrap_interval_covers_the_true_mean():
 def test_bootstrap_interval_needs_two_seeds():
     assert all(math.isnan(v) for v in bootstrap_interval([0.8]))
     assert bootstrap_interval([0.8, 0.9], seed=1) == bootstrap_interval([0.8, 0.9], seed=1)
-
-
-def test_seed_statistics_mean_sd_interval():
-    rows = [
-        {"dataset": "a", "method": "m", "params": "-", "seed": s, "status": "ok", "t@10": v}
-        for s, v in enumerate([0.8, 0.9, 0.85])
-    ]
-    rows.append({"dataset": "a", "method": "m", "params": "-", "seed": 3, "status": "failed", "t@10": np.nan})
-    rows.append({"dataset": "a", "method": "one", "params": "-", "seed": 0, "status": "ok", "t@10": 0.5})
-    out = seed_statistics(pd.DataFrame(rows), ["t@10"]).set_index("method")
-    # NumPy mean and ddof=1 standard deviation
-    assert out.loc["m", "t@10"] == pytest.approx(np.mean([0.8, 0.9, 0.85]))
-    assert out.loc["m", "t@10_sd"] == pytest.approx(np.std([0.8, 0.9, 0.85], ddof=1))
-    # Student 1908 t interval, as scipy.stats.t.interval computes it
-    ref = sps.t.interval(0.95, 2, loc=np.mean([0.8, 0.9, 0.85]), scale=sps.sem([0.8, 0.9, 0.85]))
-    assert (out.loc["m", "t@10_lo"], out.loc["m", "t@10_hi"]) == pytest.approx(ref, rel=1e-12)
-    assert out.loc["m", "seeds"] == 3
-    assert math.isnan(out.loc["one", "t@10_lo"]) and math.isnan(out.loc["one", "t@10_sd"])
 
 
 def test_knn_overlap_counts_shared_neighbours():

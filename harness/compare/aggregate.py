@@ -14,6 +14,7 @@ import pandas as pd
 from ..config import CellStatus, is_failure
 from ..metrics import MEASURES, measure_stem
 from ..run.folder import CI_HIGH, CI_LOW, ID_COLUMNS, INFO_COLUMNS
+from ..run.integrity import measure_range
 from .stats import t_interval
 
 #: A configuration: one dataset x method x parameter point (its seeds are pooled).
@@ -62,7 +63,9 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95) -> pd.DataFrame:
         with fewer than two seeds).  A percentile bootstrap of 3 to 10 seed
         values covers the true mean far less often than it claims (about 74%
         at 3 seeds for a "95%" interval); the t interval holds its level for
-        normal seed scores at any number of seeds.  ``deterministic`` is true
+        normal seed scores at any number of seeds.  It is clipped to the
+        measure's range (``fit_seconds`` >= 0, trustworthiness <= 1, ...),
+        which cannot lower its coverage since the mean lies in that range.  ``deterministic`` is true
         when the method was fitted once and its other seeds are copies of that
         fit (``copy_of`` in the scores); its quality measures then have no seed
         spread or interval (NaN), not a spread of 0 over copies.
@@ -81,8 +84,11 @@ def aggregate(scores: pd.DataFrame, *, level: float = 0.95) -> pd.DataFrame:
             row[m] = float(finite.mean()) if finite.size else math.nan
             spread = finite.size > 1 and not (deterministic and m not in COST_COLUMNS)
             row[f"{m}_sd"] = float(finite.std(ddof=1)) if spread else math.nan
-            bounds = t_interval(finite, level=level) if spread else (math.nan, math.nan)
-            row[f"{m}_lo"], row[f"{m}_hi"] = bounds
+            lo, hi = t_interval(finite, level=level) if spread else (math.nan, math.nan)
+            # the mean cannot lie outside the measure's range (e.g. no negative seconds), so
+            # clipping the interval there never lowers its coverage
+            floor, ceiling = measure_range(m)
+            row[f"{m}_lo"], row[f"{m}_hi"] = max(lo, floor), min(hi, ceiling)
         rows.append(row)
     columns = [*CONFIG, "seeds_ok", "seeds_failed", "deterministic"] + [
         f"{m}{s}" for m in cols for s in ("", "_sd", "_lo", "_hi")

@@ -29,7 +29,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats as _sps
 from scipy.spatial import procrustes
@@ -113,43 +112,6 @@ def t_interval(values: ArrayLike, *, level: float = 0.95) -> tuple[float, float]
     mean = float(x.mean())
     half = float(_sps.t.ppf(0.5 + level / 2.0, x.size - 1) * x.std(ddof=1) / math.sqrt(x.size))
     return (mean - half, mean + half)
-
-
-def seed_statistics(scores: pd.DataFrame, measures: Sequence[str], *, level: float = 0.95) -> pd.DataFrame:
-    """Mean, standard deviation and Student t interval of each measure over seeds.
-
-    Parameters
-    ----------
-    scores : DataFrame
-        A row per cell with ``dataset, method, params, seed, status`` and the measure columns.
-    measures : sequence of str
-        Measure columns to describe.
-    level : float
-        Coverage of the interval.
-
-    Returns
-    -------
-    DataFrame
-        A row per ``dataset, method, params`` with ``seeds`` (ok seeds) and, per
-        measure ``m``: ``m`` (mean), ``m_sd`` (sample sd, ddof=1), ``m_lo`` and ``m_hi``
-        (t interval; NaN with one seed).
-    """
-    config = ["dataset", "method", "params"]
-    ok = scores[scores["status"] == "ok"]
-    rows = []
-    for key, group in ok.groupby(config, sort=False):
-        row: dict[str, object] = dict(zip(config, key))
-        row["seeds"] = len(group)
-        for m in measures:
-            if m not in group:
-                continue
-            v = group[m].to_numpy(dtype=float)
-            finite = v[np.isfinite(v)]
-            row[m] = float(finite.mean()) if finite.size else math.nan
-            row[f"{m}_sd"] = float(finite.std(ddof=1)) if finite.size > 1 else math.nan
-            row[f"{m}_lo"], row[f"{m}_hi"] = t_interval(finite, level=level)
-        rows.append(row)
-    return pd.DataFrame(rows)
 
 
 def knn_overlap(a: np.ndarray, b: np.ndarray, k: int, *, queries: np.ndarray | None = None) -> float:

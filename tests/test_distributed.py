@@ -269,3 +269,15 @@ def test_a_scheduler_needs_the_dask_backend():
         parse_suite("name: x\ndatasets: [iris]\nmethods: [pca]\nrun: {scheduler: 'tcp://h:1'}\n", "s.yaml")
     with pytest.raises(InputError, match=r"run\.backend: expected one of local, dask"):
         parse_suite("name: x\ndatasets: [iris]\nmethods: [pca]\nrun: {backend: dusk}\n", "s.yaml")
+
+
+def test_a_cluster_without_workers_gives_the_cells_up_instead_of_waiting_for_ever(monkeypatch):
+    # A scheduler whose workers are all gone (here: it never had one) must not hang the run:
+    # after the grace period every cell still to do ends as crashed with the reason.
+    monkeypatch.setattr(dask_backend, "NO_WORKER_GRACE", 1.0)
+    cells, data, scoring = planned("  - use: pca\n", seeds=2)
+    with distributed.LocalCluster(n_workers=0, dashboard_address=":0", silence_logs=40) as empty:
+        results = by_key(on_dask(cells, data, scoring, jobs=1, scheduler=empty.scheduler_address))
+    assert results.keys() == {c.key for c in cells}
+    assert {r.status for r in results.values()} == {"crashed"}
+    assert all("no worker for 1 s" in r.error and "--resume" in r.error for r in results.values())

@@ -28,6 +28,7 @@ import io
 import logging
 import sys
 import threading
+import time
 import traceback
 import uuid
 from collections.abc import Iterator
@@ -54,6 +55,10 @@ log = logging.getLogger(__name__)
 _POLL = 0.25
 #: Seconds to wait for a scheduler given by address.
 _CONNECT_TIMEOUT = 20
+#: Seconds the cluster may have no worker at all before the cells still to do are given up
+#: (crashed, with the reason; ``--resume`` computes them later).  Without it a run whose
+#: workers all died, and were not replaced, would wait for ever.
+NO_WORKER_GRACE = 300.0
 #: BLAS threads per task: Dask runs one task per worker thread, so more would oversubscribe.
 _TASK_THREADS = 1
 
@@ -214,8 +219,26 @@ def _run(
         pending[future] = (cell, alone)
 
     log.info("sending %d cells to the Dask scheduler %s", len(cells), client.scheduler.address)
+    no_worker_since: float | None = None
     try:
         while pending or waiting or suspects:
+            threads = sum(client.nthreads().values())
+            if threads:
+                no_worker_since = None
+            elif no_worker_since is None:
+                no_worker_since = time.monotonic()
+            elif time.monotonic() - no_worker_since > NO_WORKER_GRACE:
+                client.cancel(list(pending))
+                reason = (
+                    f"not computed: the Dask cluster had no worker for {NO_WORKER_GRACE:g} s "
+                    "(start workers, then continue with --resume)"
+                )
+                for cell in [*(c for c, _ in pending.values()), *reversed(waiting), *suspects]:
+                    yield CellResult(cell, CellStatus.CRASHED, reason)
+                pending.clear()
+                waiting.clear()
+                suspects.clear()
+                return
             if stop.is_set():
                 client.cancel(list(pending))
                 for cell in [*(c for c, _ in pending.values()), *reversed(waiting), *suspects]:
@@ -226,7 +249,7 @@ def _run(
                 return
             # No more cells in flight than worker threads, counted anew each time (workers come
             # and go); suspects run one at a time with nothing beside them, after the rest.
-            capacity = max(1, sum(client.nthreads().values()))
+            capacity = max(1, threads)
             while waiting and len(pending) < capacity:
                 submit(waiting.pop(), alone=False)
             if not waiting and not pending and suspects:

@@ -7,6 +7,8 @@ Each measurement runs in a fresh subprocess so that its peak resident memory
   points, where its n x n matrices do not fit);
 * ``local``    foldbench's full local set: trustworthiness, continuity, recall,
   MRRE, LCMC at k = 10 and the Q_NX / R_NX curve and its area to K = 100;
+* ``evaluate`` ``harness.evaluate(x, y, k=10)``: every measure (global ones, the full-range
+  R_NX area, ...), the issue's target of 0.1x scikit-learn's ``trustworthiness``;
 * ``floor``    the blockwise distance products alone, both spaces, same blocks;
 * ``sampled``  the local set estimated from 2,000 query points.
 
@@ -79,8 +81,10 @@ def _child(kind: str, n: int, d: int, m: int) -> dict:
         queries = (
             np.arange(n) if kind == "local" else np.sort(np.random.default_rng(0).choice(n, m, replace=False))
         )
-        terms = metrics._local(x, None, y, [K], K_CURVE, queries, default_memory_bytes())
+        terms = metrics._local(*metrics._rows(x, None, y), [K], K_CURVE, queries, default_memory_bytes())
         value = float(terms.terms[f"trustworthiness@{K}"].mean())
+    elif kind == "evaluate":
+        value = metrics.evaluate(x, y, k=K)["trustworthiness"]
     elif kind == "floor":
         data, emb = DistanceRows(points=x), DistanceRows(points=y)
         rows = block_rows(n, n, default_memory_bytes(), data.nbytes + emb.nbytes)
@@ -135,18 +139,19 @@ def main() -> None:
     print(f"cpus={os.cpu_count()}  numpy={np.__version__}  k={K}  curve to K={K_CURVE}")
     header = (
         f"{'n':>9} {'D':>4} | {'scikit-learn trustworthiness':>28} | {'foldbench local set':>22} | "
-        f"{'distance floor':>22} | {'local/floor':>11} | {'sklearn/local':>13} | load"
+        f"{'distance floor':>22} | {'local/floor':>11} | {'sklearn/local':>13} | "
+        f"{'harness.evaluate':>22} | {'evaluate/sklearn':>16} | load"
     )
     print(header)
     print("-" * len(header))
     for n, d in QUICK if args.quick else FULL:
         repeat = max(1, args.repeat) if n <= REPEAT_MAX_N else 1
-        runs: dict[str, list[dict | None]] = {"sklearn": [], "local": [], "floor": []}
+        runs: dict[str, list[dict | None]] = {"sklearn": [], "local": [], "floor": [], "evaluate": []}
         for _ in range(repeat):
             for kind, done in runs.items():
                 if kind != "sklearn" or n <= SKLEARN_MAX_N:
                     done.append(_run(kind, n, d))
-        sk, loc, flo = (_fastest(runs[kind]) for kind in ("sklearn", "local", "floor"))
+        sk, loc, flo, ev = (_fastest(runs[kind]) for kind in ("sklearn", "local", "floor", "evaluate"))
         ratio = (
             f"{loc['seconds'] / flo['seconds']:11.2f}"
             if loc and flo and "error" not in loc and "error" not in flo
@@ -157,9 +162,14 @@ def main() -> None:
             if sk and "error" not in sk and "error" not in loc
             else f"{'-':>13}"
         )
+        versus = (
+            f"{ev['seconds'] / sk['seconds']:16.2f}"
+            if sk and ev and "error" not in sk and "error" not in ev
+            else f"{'-':>16}"
+        )
         print(
             f"{n:>9} {d:>4} | {_cell(sk):>28} | {_cell(loc):>22} | {_cell(flo):>22} | {ratio} | {speed} | "
-            f"{os.getloadavg()[0]:.1f}",
+            f"{_cell(ev):>22} | {versus} | {os.getloadavg()[0]:.1f}",
             flush=True,
         )
     if not args.quick:

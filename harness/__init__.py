@@ -27,6 +27,7 @@ Layers, each importing only those below it: ``cli`` > ``api`` > ``report`` >
 from __future__ import annotations
 
 from .api import load_run, rerun, run_suite
+from .choose import Recommendation, choose
 from .compare import CheckOutcome, RunSummary, check_runs
 from .config import foldbench_version
 from .errors import InputError
@@ -40,11 +41,13 @@ __version__ = foldbench_version()
 __all__ = [
     "CheckOutcome",
     "InputError",
+    "Recommendation",
     "RunFolder",
     "RunSummary",
     "Suite",
     "__version__",
     "check_method",
+    "choose",
     "check_runs",
     "coranking_curve",
     "evaluate",

@@ -51,7 +51,13 @@ def parse_budget(text: str | float | int, where: str = "--budget") -> float:
 def show_seconds(seconds: float) -> str:
     """``42 s``, ``3.5 min`` or ``1.25 h``."""
     if seconds < 120:
-        return f"{seconds:.0f} s" if seconds >= 10 else f"{seconds:.1f} s"
+        return (
+            f"{seconds:.0f} s"
+            if seconds >= 10
+            else f"{seconds:.1f} s"
+            if seconds >= 1
+            else f"{seconds:.2g} s"
+        )
     if seconds < 7200:
         return f"{seconds / 60:.1f} min"
     return f"{seconds / 3600:.2f} h"

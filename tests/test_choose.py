@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import json
 from pathlib import Path
 
@@ -67,7 +68,7 @@ def test_rung_plan_multiplies_the_rows_by_eta_until_all_data_with_every_seed():
     rungs = plan_rungs(1800, 22, (0, 1, 2), eta=3)
     assert [r.size for r in rungs] == [200, 600, 1800]
     assert [len(r.seeds) for r in rungs] == [1, 1, 3]
-    assert all(b.size == 3 * a.size for a, b in zip(rungs, rungs[1:]))
+    assert all(b.size == 3 * a.size for a, b in itertools.pairwise(rungs))
 
 
 def test_small_data_halves_over_seeds_once_rows_cannot_shrink():

@@ -176,8 +176,14 @@ def recommendation_text(rec: Recommendation) -> str:
 
 
 def _separation_lines(rec: Recommendation) -> list[str]:
-    if rec.winner is None or rec.runner_up is None:
+    if rec.winner is None:
         return []
+    if rec.runner_up is None:
+        return [
+            "No runner-up reached the last rung (the others were outranked or dropped for budget), "
+            "so the winner is not tested against one.",
+            "",
+        ]
     if not rec.separations:
         return [f"Winner against runner-up ({rec.runner_up}): not tested (one seed at this rung).", ""]
     parts = [

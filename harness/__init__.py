@@ -18,8 +18,10 @@ coranking_curve(X, Y, k_max) -> DataFrame
     Q_NX(K) and R_NX(K) for K = 1..k_max.
 check_method(obj) -> list of str
     What stops a class from working as a foldbench plug-in (empty: nothing).
+choose(data, budget="10m", care="balanced", ...) -> Recommendation
+    Pick a method configuration within a time budget by successive halving.
 
-Layers, each importing only those below it: ``cli`` > ``api`` > ``report`` >
+Layers, each importing only those below it: ``cli`` > ``choose`` > ``api`` > ``report`` >
 ``compare`` > ``run`` > ``suite`` > ``methods`` > ``datasets`` > ``metrics`` >
 ``config``, ``errors``, ``text``, ``params``.
 """

@@ -240,7 +240,7 @@ def test_well_separated_clusters_with_care_labels_pick_an_accurate_map(tmp_path)
     assert rec.complete
     final = RunFolder.open(rec.rungs[-1].run_dir).scores
     mine = final[(final["method"] == rec.winner) & (final["status"] == "ok")]
-    assert mine["knn_accuracy"].mean() >= 0.95
+    assert mine["knn_accuracy@10"].mean() >= 0.95
 
 
 @pytest.mark.slow
@@ -267,3 +267,32 @@ def test_budget_is_respected_on_a_large_table(tmp_path):
         assert f"dropped for budget {name}" in text
     # the issue's acceptance bound (budget + 10%), on choose's own account of its time
     assert rec.seconds <= 1.1 * 180
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(
+    strict=True,
+    reason="the global measures (stress, Shepard Spearman) compare with straight-line distances in the "
+    "data, which MDS keeps best; Isomap unrolls the sheet (latent Spearman 0.999 at 1000 rows) but scores "
+    "0.37 on Shepard Spearman, and on the 111-row first rung it cannot unroll at all (0.33)",
+)
+def test_rolled_sheet_with_care_global_recovers_the_latent_chart(tmp_path):
+    # the sheet's unrolled length and height are known by construction (rolled sheet's latent);
+    # the issue expects a winner that unrolls it (Isomap-like): Spearman with the chart >= 0.95
+    rec = choose("rolled_sheet", budget="10m", care="global", out=tmp_path / "c")
+    assert rec.complete
+    final = RunFolder.open(rec.rungs[-1].run_dir).scores
+    mine = final[(final["method"] == rec.winner) & (final["status"] == "ok")]
+    assert mine["latent_spearman"].mean() >= 0.95
+
+
+@pytest.mark.slow
+def test_the_pick_is_in_the_exhaustive_top_two_on_three_of_four_bundled_datasets(tmp_path):
+    # the issue's acceptance: the risk of halving (a candidate dropped early might win on all the
+    # data) measured against the exhaustive grid, which --audit runs; times are in bench/bench_choose.py
+    ranks = {}
+    for name in ("rolled_sheet", "machine_fleet", "digits", "iris"):
+        rec = choose(name, budget="1h", out=tmp_path / name, audit=True)
+        assert rec.audit is not None and rec.audit["count"] == len(rec.candidates)
+        ranks[name] = rec.audit["winner_rank"]
+    assert sum(1 for r in ranks.values() if r is not None and r <= 2) >= 3, ranks

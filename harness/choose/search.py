@@ -133,6 +133,7 @@ def choose(
     InputError
         Bad budget, care, label or data; an empty pool; a budget below what the first rung needs.
     """
+    started = time.monotonic()  # reading the data counts against the budget too
     seconds_budget = parse_budget(budget)
     if eta < 2:
         raise InputError("eta", f"expected an integer >= 2, got {eta}")
@@ -182,6 +183,7 @@ def choose(
         sizes,
         shrinkable,
         eta,
+        started,
     )
     rec = session.run(care)
     if audit:
@@ -258,6 +260,7 @@ class _Session:
         sizes: dict[str, int],
         shrinkable: bool,
         eta: int,
+        started: float,
     ) -> None:
         self.base, self.pool, self.rungs, self.weights, self.ks = base, pool, rungs, weights, ks
         self.budget, self.folder, self.jobs, self.state, self.key = budget, folder, jobs, state, key
@@ -265,7 +268,7 @@ class _Session:
         self.sizes, self.shrinkable, self.eta = sizes, shrinkable, eta
         self.by_name = {c.name: c for c in pool.candidates}
         self.cores = jobs or os.cpu_count() or 1
-        self.started = time.monotonic()
+        self.started = started
         self.timings: dict[str, list[tuple[int, float]]] = {}
 
     # ------------------------------------------------------------ time

@@ -399,31 +399,22 @@ class _Session:
     def _run_rung(
         self, rung: Rung, alive: list[str], cell_limit: float, last: bool
     ) -> tuple[RungRecord, list[dict[str, Any]], pd.DataFrame]:
-        from ..api import run_suite
 
         rows = min(_rung_rows(n, rung, self.shrinkable) for n in self.sizes.values())
         carried = [n for n in alive if invalid_at(self.by_name[n].params, rows)]
         runnable = [n for n in alive if n not in carried]
-        suite = rung_suite(
-            f"{self.base.name}-rung{rung.index}",
-            self._datasets(),
-            [self.by_name[n] for n in runnable],
-            rung,
-            dimensions=self.base.dimensions,
-            ks=self.ks,
-            rank_by=self.weights,
-            time_limit=cell_limit,
-            quadratic_limit=self.base.run.quadratic_limit,
-            jobs=self.jobs,
-        )
-        partial = self.state.setdefault("partial", {}).get(str(rung.index))
+        partial = self.state.setdefault("partial", {}).get(str(rung.index)) or {}
+        if partial.get("run_dir"):  # an interrupted rung: the same suite text, so its folder can resume
+            cell_limit = float(partial.get("time_limit", cell_limit))
+        suite = self._rung_suite(rung, runnable, cell_limit)
         t0 = time.monotonic()
         try:
-            summary = run_suite(
-                suite, self.folder / "rungs", resume=partial, cache=self.folder / "cache", jobs=self.jobs
-            )
+            summary = self._execute(suite, partial.get("run_dir"))
         except RunInterrupted as stopped:
-            self.state["partial"][str(rung.index)] = str(stopped.run_dir)
+            self.state["partial"][str(rung.index)] = {
+                "run_dir": str(stopped.run_dir),
+                "time_limit": cell_limit,
+            }
             raise
         seconds = time.monotonic() - t0
         ranked = summary.ranking.ranked
@@ -460,6 +451,32 @@ class _Session:
             carried,
         )
         return record, frame, summary.scores
+
+    def _rung_suite(self, rung: Rung, names: list[str], cell_limit: float) -> Suite:
+        return rung_suite(
+            f"{self.base.name}-rung{rung.index}",
+            self._datasets(),
+            [self.by_name[n] for n in names],
+            rung,
+            dimensions=self.base.dimensions,
+            ks=self.ks,
+            rank_by=self.weights,
+            time_limit=cell_limit,
+            quadratic_limit=self.base.run.quadratic_limit,
+            jobs=self.jobs,
+        )
+
+    def _execute(self, suite: Suite, resume: str | None) -> Any:
+        """One rung through the ordinary runner; an interrupted rung's folder is continued."""
+        from ..api import run_suite
+
+        cache = self.folder / "cache"
+        if resume and Path(resume).is_dir():
+            try:
+                return run_suite(suite, self.folder / "rungs", resume=resume, cache=cache, jobs=self.jobs)
+            except InputError as exc:  # not resumable: start the rung again (finished cells are cached)
+                log.warning("rung folder %s not resumed (%s)", resume, exc)
+        return run_suite(suite, self.folder / "rungs", cache=cache, jobs=self.jobs)
 
     def _row(self, s: Any, ranked: pd.DataFrame) -> dict[str, Any]:
         rows = ranked[ranked["method"] == s.name]

@@ -2,8 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import json
+import os
+import signal
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -296,3 +302,50 @@ def test_the_pick_is_in_the_exhaustive_top_two_on_three_of_four_bundled_datasets
         assert rec.audit is not None and rec.audit["count"] == len(rec.candidates)
         ranks[name] = rec.audit["winner_rank"]
     assert sum(1 for r in ranks.values() if r is not None and r <= 2) >= 3, ranks
+
+
+@pytest.mark.slow
+def test_an_interrupted_choose_continues_where_it_stopped(tmp_path, write_suite):
+    # the plug-in sleeps about 2 s a cell on all 450 rows, so the last rung is still running when
+    # Ctrl-C arrives after its first stored cell (common practice, no source)
+    suite = write_suite(
+        """\
+        name: halt
+        seeds: 3
+        datasets:
+          - use: gaussian_clusters
+            name: blobs
+            params: {n: 450, n_features: 2, n_clusters: 3}
+        methods:
+          - use: pca
+          - use: "runner_plugins:SlowsWithSize"
+            name: slow
+            params: {scale: 300}
+          - use: random_projection
+          - use: isomap
+            params: {n_neighbors: 5}
+        """
+    )
+    out = tmp_path / "halt"
+    tests = str(Path(__file__).resolve().parent)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([tests, os.environ.get("PYTHONPATH", "")]))
+    cmd = [sys.executable, "-m", "harness", "choose", str(suite), "--out", str(out), "--jobs", "1"]
+    proc = subprocess.Popen(
+        cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, start_new_session=True
+    )
+    try:
+        deadline = time.monotonic() + 240
+        while not list(out.glob("rungs/halt-rung1/*/cells/*.json")) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=240)
+    finally:
+        with contextlib.suppress(OSError):
+            os.killpg(proc.pid, signal.SIGKILL)
+    assert proc.returncode == 130, err
+    (folder,) = list(out.glob("rungs/halt-rung1/*"))
+    again = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=240)
+    assert again.returncode == 0, again.stderr
+    assert "rung 0: read back" in again.stderr
+    assert list(out.glob("rungs/halt-rung1/*")) == [folder]  # the same folder, continued
+    assert len(json.loads((folder / "manifest.json").read_text())["resumed"]) == 1

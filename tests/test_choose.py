@@ -349,3 +349,22 @@ def test_an_interrupted_choose_continues_where_it_stopped(tmp_path, write_suite)
     assert "rung 0: read back" in again.stderr
     assert list(out.glob("rungs/halt-rung1/*")) == [folder]  # the same folder, continued
     assert len(json.loads((folder / "manifest.json").read_text())["resumed"]) == 1
+
+
+def test_when_the_budget_runs_out_the_answer_is_the_best_so_far_and_says_so(tmp_path, write_suite):
+    # every candidate sleeps (n/100)^2 s: about 2 s a cell on the 150-row first rung, 20 s a cell on
+    # all 450 rows, so nothing fits the rest of a 15 s budget after the first rung
+    methods = "".join(
+        f'  - {{use: "runner_plugins:SlowsWithSize", name: slow{i}, params: {{scale: {100 + i}}}}}\n'
+        for i in range(4)
+    )
+    suite = write_suite(
+        "name: dear\nseeds: 3\ndatasets:\n  - use: gaussian_clusters\n    name: blobs\n"
+        "    params: {n: 450, n_features: 2, n_clusters: 3}\nmethods:\n" + methods
+    )
+    rec = choose(suite, budget="15s", care="global", out=tmp_path / "dear", jobs=2)
+    assert not rec.complete and len(rec.rungs) == 1
+    assert rec.winner == rec.rungs[0].ranking[0]["name"]
+    assert set(dict(rec.budget_dropped)) == set(rec.rungs[0].kept)
+    text = (tmp_path / "dear" / "recommendation.md").read_text(encoding="utf-8")
+    assert "The budget ran out before the last rung" in text

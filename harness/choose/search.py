@@ -290,6 +290,7 @@ class _Session:
         last_scores: pd.DataFrame | None = None
         complete = False
         notes: list[str] = []
+        finalists: list[str] = []  # the survivors of the last completed rung
         done = {int(r["index"]): r for r in self.state.get("rungs", [])}
         for rung in self.rungs:
             last = rung is self.rungs[-1]
@@ -306,7 +307,7 @@ class _Session:
                         self.timings.setdefault(row["name"], []).append((record.size, row["fit_seconds"]))
                 self.progress(f"rung {rung.index}: read back ({len(record.kept)} kept)")
                 records.append(record)
-                alive, last_frame = record.kept, record.ranking
+                alive, last_frame, finalists = record.kept, record.ranking, record.kept
                 complete = last
                 if last:
                     last_scores = self._scores(record.run_dir)
@@ -329,14 +330,14 @@ class _Session:
             records.append(record)
             self.state.setdefault("rungs", []).append(dataclasses.asdict(record))
             self._save()
-            alive, last_frame, last_scores = record.kept, frame, scores
+            alive, last_frame, last_scores, finalists = record.kept, frame, scores, record.kept
             complete = last
             self.progress(
                 f"rung {rung.index}: {rung.size} rows, {len(record.ranking)} ran, {len(record.kept)} kept, "
                 f"{len(record.dropped) + len(budget_dropped)} dropped, {show_seconds(record.seconds)} "
                 f"({show_seconds(self.spent())} of {show_seconds(self.budget)})"
             )
-        final = [r for r in last_frame if r["name"] in alive] if last_frame else []
+        final = [r for r in last_frame if r["name"] in finalists]
         winner = final[0]["name"] if final and not math.isnan(final[0]["mean_rank"]) else None
         separations = self._separations(final, last_scores) if complete and len(final) > 1 else []
         rec = Recommendation(

@@ -89,7 +89,7 @@ def choose(
     care: str = "balanced",
     label: str | None = None,
     dimensions: int | None = None,
-    out: str | Path = "results/choose",
+    out: str | Path | None = None,
     eta: int = ETA,
     jobs: int | None = None,
     audit: bool = False,
@@ -112,7 +112,8 @@ def choose(
     dimensions : int, optional
         Size of the embeddings (default: the suite's, else 2).
     out : path
-        Folder of this choose: its state, rung run folders, cache and recommendation.
+        Folder of this choose: its state, rung run folders, cache and recommendation
+        (default ``results/choose/<data name>``).
         Run again with the same arguments and folder to continue an interrupted choose.
     eta : int
         Factor between rung sizes and between survivors (keep the best 1/eta).
@@ -164,7 +165,7 @@ def choose(
             f"({len(pool.candidates)} candidates on {rungs[0].size} rows), "
             f"got {show_seconds(seconds_budget)}",
         )
-    folder = Path(out)
+    folder = Path(out) if out is not None else default_out(base)
     folder.mkdir(parents=True, exist_ok=True)
     key = _key(base, pool, rungs, weights, seeds, eta, seconds_budget)
     state = _read_state(folder, key)
@@ -190,6 +191,12 @@ def choose(
         rec.audit = session.audit(rec.winner)
     write_text_file(folder / "recommendation.md", recommendation_text(rec))
     return rec
+
+
+def default_out(base: Suite) -> Path:
+    """``results/choose/<name>``: the suite's name, or the one dataset's name for a table or dataset."""
+    name = base.name if base.name != "choose" else base.datasets[0].name
+    return Path("results") / "choose" / name
 
 
 def _rung_rows(n: int, rung: Rung, shrinkable: bool) -> int:

@@ -30,8 +30,7 @@ def _arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--out",
         metavar="DIR",
-        default="results/choose",
-        help="folder of this choice (run again with the same folder to continue; default results/choose)",
+        help="folder of this choice (the same command again continues it; default results/choose/<data>)",
     )
     parser.add_argument("--jobs", type=int, metavar="N", help="cells computed at once (default: all cores)")
     parser.add_argument(
@@ -51,7 +50,8 @@ def _handler(args: argparse.Namespace) -> int:
         raise InputError("--care", f"expected one of {', '.join(CARES)}, got {args.care!r}")
     positive_int(args.jobs, "--jobs")
     positive_int(args.dimensions, "--dimensions")
-    writable_folders((args.out, "--out", True))
+    if args.out:
+        writable_folders((args.out, "--out", True))
     news = None if args.quiet else (lambda line: print(line, file=sys.stderr))
     try:
         rec = choose(
@@ -67,7 +67,7 @@ def _handler(args: argparse.Namespace) -> int:
         )
     except RunInterrupted:
         print(
-            f"Interrupted; finished rungs and cells are kept in {args.out}.\n"
+            f"Interrupted; finished rungs and cells are kept in {args.out or 'results/choose/<data>'}.\n"
             f"Continue with the same command (same --out).",
             file=sys.stderr,
         )
@@ -75,7 +75,7 @@ def _handler(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(recommendation_text(rec))
     winner = rec.winner or "none"
-    print(f"Winner: {winner}; recommendation.md and chosen.yaml in {args.out}")
+    print(f"Winner: {winner}; recommendation.md and chosen.yaml in {rec.out}")
     return EXIT_OK
 
 

@@ -145,6 +145,13 @@ def recommendation_text(rec: Recommendation) -> str:
                 cells.append(text)
             rows.append(cells)
         lines += ["Finalists (seed means, 95% t interval):", "", markdown_table(rows, header), ""]
+        top = rec.final[:2]
+        if len(top) == 2 and top[0]["mean_rank"] == top[1]["mean_rank"]:
+            lines += [
+                f"The first two tie on mean rank; the tie goes to the cheaper fit "
+                f"({_num(top[0].get('fit_seconds'))} s against {_num(top[1].get('fit_seconds'))} s a cell).",
+                "",
+            ]
     lines += _separation_lines(rec)
     lines += ["## Rungs", ""]
     for r in rec.rungs:

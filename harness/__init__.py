@@ -18,8 +18,10 @@ coranking_curve(X, Y, k_max) -> DataFrame
     Q_NX(K) and R_NX(K) for K = 1..k_max.
 check_method(obj) -> list of str
     What stops a class from working as a foldbench plug-in (empty: nothing).
+choose(data, budget="10m", care="balanced", ...) -> Recommendation
+    Pick a method configuration within a time budget by successive halving.
 
-Layers, each importing only those below it: ``cli`` > ``api`` > ``report`` >
+Layers, each importing only those below it: ``cli`` > ``choose`` > ``api`` > ``report`` >
 ``compare`` > ``run`` > ``suite`` > ``methods`` > ``datasets`` > ``metrics`` >
 ``config``, ``errors``, ``text``, ``params``.
 """
@@ -27,6 +29,7 @@ Layers, each importing only those below it: ``cli`` > ``api`` > ``report`` >
 from __future__ import annotations
 
 from .api import load_run, rerun, run_suite
+from .choose import Recommendation, choose
 from .compare import CheckOutcome, RunSummary, check_runs
 from .config import foldbench_version
 from .errors import InputError
@@ -40,12 +43,14 @@ __version__ = foldbench_version()
 __all__ = [
     "CheckOutcome",
     "InputError",
+    "Recommendation",
     "RunFolder",
     "RunSummary",
     "Suite",
     "__version__",
     "check_method",
     "check_runs",
+    "choose",
     "coranking_curve",
     "evaluate",
     "load_run",

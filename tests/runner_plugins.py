@@ -110,3 +110,15 @@ class HoldsNamedLock(_Base):
         # runs before the semaphore's own finalizer (higher priority first): a slow shutdown
         util.Finalize(None, time.sleep, args=(0.5,), exitpriority=100)
         return self._first_columns(X)
+
+
+class SlowsWithSize(_Base):
+    """The first columns, after sleeping ``(n / scale)**2`` seconds: cheap on subsamples, dear on all rows."""
+
+    def __init__(self, n_components: int = 2, random_state: int | None = None, scale: float = 100.0):
+        super().__init__(n_components, random_state)
+        self.scale = scale
+
+    def fit_transform(self, X):
+        time.sleep((len(X) / self.scale) ** 2)
+        return self._first_columns(X)

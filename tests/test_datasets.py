@@ -574,3 +574,24 @@ def test_distance_matrix_text_cell(tmp_path):
         r"column 3",
     ):
         load_dataset("distance_matrix", {"path": path})
+
+
+def test_a_table_subsample_keeps_class_shares_and_rows(tmp_path):
+    # stratified sampling keeps each class's share (70/30 of 100 rows -> 14/6 of 20; common practice)
+    from harness.datasets import load_dataset as load
+
+    rng = np.random.default_rng(3)
+    X = rng.normal(size=(100, 3))
+    labels = ["a"] * 70 + ["b"] * 30
+    path = tmp_path / "t.csv"
+    path.write_text(
+        "x,y,z,site\n" + "\n".join(f"{r[0]:.6f},{r[1]:.6f},{r[2]:.6f},{g}" for r, g in zip(X, labels)),
+        encoding="utf-8",
+    )
+    full = load("table", {"path": str(path), "label": "site"})
+    part = load("table", {"path": str(path), "label": "site", "n": 20, "seed": 1})
+    assert part.n == 20 and sorted(np.unique(part.labels, return_counts=True)[1]) == [6, 14]
+    rows = {tuple(r) for r in full.X}
+    assert all(tuple(r) in rows for r in part.X)
+    again = load("table", {"path": str(path), "label": "site", "n": 20, "seed": 1})
+    np.testing.assert_array_equal(part.X, again.X)

@@ -16,12 +16,13 @@ import sys
 
 from ..config import foldbench_version
 from ..errors import InputError
-from . import cache, results, run, score, suites
+from . import cache, choose, results, run, score, suites
 from ._base import EXIT_FAILED, EXIT_INPUT, EXIT_INTERRUPTED, EXIT_OK, Command, Parser
 
 #: Every command, in the order ``foldbench --help`` lists them.
 COMMANDS: list[Command] = [
     *run.COMMANDS,
+    *choose.COMMANDS,
     *score.COMMANDS,
     *suites.COMMANDS,
     *results.COMMANDS,

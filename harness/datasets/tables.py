@@ -21,7 +21,7 @@ import pandas as pd
 from ..errors import InputError, suggest
 from ..params import Param, at_least
 from ..text import is_number_text
-from ._common import checked, standardise, standardise_param
+from ._common import checked, seed_param, standardise, standardise_param, stratified_rows
 from ._registry import register_dataset
 from ._types import Dataset
 
@@ -298,6 +298,14 @@ def _label_values(df: pd.DataFrame, label: str, path: str, fmt: str) -> np.ndarr
         ),
         Param("min_rows", int, 10, "fewest rows accepted", check=at_least(2)),
         Param("id_column", str, None, "column of row ids (not a feature); file embeddings are matched by it"),
+        Param(
+            "n",
+            int,
+            None,
+            "keep a random class-stratified subsample of this many rows (default: all rows)",
+            check=at_least(2),
+        ),
+        seed_param(),
     ),
     description="your own feature table: CSV, TSV, Parquet or a 2-D NumPy array",
     source="user file",
@@ -312,6 +320,8 @@ def table(
     duplicates: str = "keep",
     min_rows: int = 10,
     id_column: str | None = None,
+    n: int | None = None,
+    seed: int = 0,
 ) -> Dataset:
     """Load a table of numeric features, with optional class labels.
 
@@ -340,6 +350,12 @@ def table(
         Column of row ids: left out of the features, kept as text in
         ``info["row_ids"]`` so that embeddings read from files can be matched
         to rows by id (not for ``.npy``; not with ``duplicates: drop``).
+    n : int, optional
+        Keep a seeded, class-stratified subsample of ``n`` rows (in file order),
+        drawn after duplicates are handled and before standardising; all rows
+        by default.
+    seed : int
+        Seed of the subsample (ignored without ``n``).
 
     Returns
     -------
@@ -394,6 +410,11 @@ def table(
     if X.shape[0] < min_rows:
         after = " after dropping duplicates" if duplicates == "drop" and n_duplicates else ""
         raise InputError(path, f"at least {min_rows} rows (min_rows), found {X.shape[0]}{after}")
+    if n is not None:
+        rows = stratified_rows(labels, X.shape[0], n, seed, "table.n")
+        X = X[rows]
+        labels = None if labels is None else labels[rows]
+        row_ids = None if row_ids is None else row_ids[rows]
     if standardise:
         X = _standardise_checked(X, names, path)
     return Dataset(
@@ -409,6 +430,7 @@ def table(
             "duplicate_rows": n_duplicates,
             "duplicates": duplicates,
             "standardised": bool(standardise),
+            "subsample": None if n is None else int(n),
         }
         | ({"row_ids": row_ids, "id_column": id_column} if row_ids is not None else {}),
     )

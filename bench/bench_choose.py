@@ -1,0 +1,79 @@
+"""``choose`` against the exhaustive grid on each bundled dataset: time and the rank of the pick.
+
+For every dataset, at its default size, one ``harness.choose(..., audit=True)``: successive
+halving over the default pool (its own fresh embedding cache, so nothing is reused from
+earlier runs), then the audit, which fits every candidate of the same pool on all the data
+with every seed, without a cache.  Both are measured in the same process, one after the
+other, so the ratio holds on a shared machine.
+
+Columns: exhaustive seconds, choose seconds, choose / exhaustive, the rank of choose's
+pick in the exhaustive ranking (1 = the exhaustive best), the exhaustive best.
+
+Usage::
+
+    python bench/bench_choose.py                 # rolled sheet, fleet demo, digits, iris
+    python bench/bench_choose.py --quick         # iris and the fleet demo only
+    python bench/bench_choose.py --care global
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from harness.choose import choose  # noqa: E402
+
+DATASETS = ("rolled_sheet", "machine_fleet", "digits", "iris")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="iris and the fleet demo only")
+    parser.add_argument("--care", default="balanced")
+    parser.add_argument("--budget", default="1h", help="choose's budget (default 1h: not the limit here)")
+    parser.add_argument("--jobs", type=int, default=None)
+    args = parser.parse_args()
+    names = ("machine_fleet", "iris") if args.quick else DATASETS
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="bench-choose-") as tmp:
+        for name in names:
+            rec = choose(
+                name, budget=args.budget, care=args.care, out=Path(tmp) / name, jobs=args.jobs, audit=True
+            )
+            audit = rec.audit or {}
+            rows.append(
+                (
+                    name,
+                    len(rec.candidates),
+                    audit.get("seconds", float("nan")),
+                    rec.seconds,
+                    rec.winner,
+                    audit.get("winner_rank"),
+                    audit.get("best"),
+                )
+            )
+            print(f"{name}: done", file=sys.stderr, flush=True)
+    print(f"\ncare={args.care}, default pool, eta=3, 3 seeds at full size\n")
+    print(
+        "| dataset | candidates | exhaustive s | choose s | ratio | pick | rank of pick | exhaustive best |"
+    )
+    print("|---|---|---|---|---|---|---|---|")
+    for name, count, full, mine, pick, rank, best in rows:
+        print(
+            f"| {name} | {count} | {full:.1f} | {mine:.1f} | {mine / full:.2f} | {pick} | {rank} | {best} |"
+        )
+    top2 = sum(1 for r in rows if r[5] is not None and r[5] <= 2)
+    third = sum(1 for r in rows if r[3] <= r[2] / 3)
+    print(
+        f"\npick in the exhaustive top 2: {top2} of {len(rows)}; "
+        f"choose within a third of the time: {third} of {len(rows)}"
+    )
+
+
+if __name__ == "__main__":
+    main()

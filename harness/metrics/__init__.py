@@ -32,7 +32,7 @@ from ._labels import knn_accuracy, silhouette
 from ._local import PER_K, collect, curve_table
 from ._memory import block_rows, default_memory_bytes
 from ._neighbours import knn_overlap
-from ._prepared import DataSide, make_data_side
+from ._prepared import SETTINGS, DataSide, make_data_side
 from ._ranks import rank_blocks
 from ._rnx_area import rnx_area
 from ._standard import standard_distances, standard_points
@@ -260,14 +260,9 @@ def score(
         raise InputError("n_pairs", f"at least {2 * JACKKNIFE_GROUPS}, got {n_pairs}")
     if n_queries < 2:
         raise InputError("n_queries", f"at least 2, got {n_queries}")
-    settings = {
-        "seed": seed,
-        "pair_sample_above": pair_sample_above,
-        "n_pairs": n_pairs,
-        "estimate_above": estimate_above,
-        "n_queries": n_queries,
-        "memory_bytes": memory_bytes,
-    }
+    settings = dict(
+        zip(SETTINGS, (seed, pair_sample_above, n_pairs, estimate_above, n_queries, memory_bytes))
+    )
     if prepared is not None:
         prepared.check(n, settings)
     if memory_bytes is None:
@@ -352,14 +347,9 @@ def prepare_data(
     x_points, x_matrix, _ = _inputs(X, np.zeros((rows, 1)), metric)
     if latent is not None:
         latent = standard_points(_matrix(latent, "latent"))
-    settings = {
-        "seed": seed,
-        "pair_sample_above": pair_sample_above,
-        "n_pairs": n_pairs,
-        "estimate_above": estimate_above,
-        "n_queries": n_queries,
-        "memory_bytes": memory_bytes,
-    }
+    settings = dict(
+        zip(SETTINGS, (seed, pair_sample_above, n_pairs, estimate_above, n_queries, memory_bytes))
+    )
     return make_data_side(x_points, x_matrix, latent, settings)
 
 

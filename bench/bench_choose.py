@@ -14,6 +14,7 @@ Usage::
     python bench/bench_choose.py                 # rolled sheet, fleet demo, digits, iris
     python bench/bench_choose.py --quick         # iris and the fleet demo only
     python bench/bench_choose.py --care global
+    python bench/bench_choose.py --big           # 20,000 invented rows, --budget 3m: wall vs budget
 """
 
 from __future__ import annotations
@@ -21,7 +22,10 @@ from __future__ import annotations
 import argparse
 import sys
 import tempfile
+import time
 from pathlib import Path
+
+import numpy as np
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
@@ -31,13 +35,47 @@ from harness.choose import choose  # noqa: E402
 DATASETS = ("rolled_sheet", "machine_fleet", "digits", "iris")
 
 
+def band_table(path: Path, n: int, seed: int = 0) -> Path:
+    """An invented table: a rolled band in 3 of 8 columns, five noise columns, label ``grp``."""
+    rng = np.random.default_rng(seed)
+    t = rng.uniform(0, 3 * np.pi, n)
+    h = rng.uniform(0, 10, n)
+    X = np.c_[t * np.cos(t), h, t * np.sin(t), rng.normal(size=(n, 5)) * 0.3]
+    lines = ["a,b,c,d,e,f,g,h,grp"] + [
+        ",".join(f"{v:.5f}" for v in row) + f",{int(g)}" for row, g in zip(X, t // np.pi)
+    ]
+    path.write_text("\n".join(lines), encoding="utf-8")
+    return path
+
+
+def big(budget: str, n: int) -> None:
+    """One choose on ``n`` invented rows within ``budget``: its wall time against the budget."""
+    with tempfile.TemporaryDirectory(prefix="bench-choose-big-") as tmp:
+        table = band_table(Path(tmp) / "band.csv", n)
+        t0 = time.perf_counter()
+        rec = choose(table, label="grp", budget=budget, out=Path(tmp) / "c")
+        wall = time.perf_counter() - t0
+    print(f"\n{n} rows, --budget {budget} ({rec.budget:.0f} s), default pool\n")
+    print("| wall s | budget s | wall / budget | winner | complete | dropped for budget |")
+    print("|---|---|---|---|---|---|")
+    dropped = ", ".join(name for name, _ in rec.budget_dropped) or "none"
+    ratio = wall / rec.budget
+    print(f"| {wall:.1f} | {rec.budget:.0f} | {ratio:.2f} | {rec.winner} | {rec.complete} | {dropped} |")
+    for name, why in rec.budget_dropped:
+        print(f"- {name}: {why}")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="iris and the fleet demo only")
     parser.add_argument("--care", default="balanced")
     parser.add_argument("--budget", default="1h", help="choose's budget (default 1h: not the limit here)")
     parser.add_argument("--jobs", type=int, default=None)
+    parser.add_argument("--big", action="store_true", help="20,000 invented rows with --budget 3m instead")
     args = parser.parse_args()
+    if args.big:
+        big("3m" if args.budget == "1h" else args.budget, 20_000)
+        return
     names = ("machine_fleet", "iris") if args.quick else DATASETS
     rows = []
     with tempfile.TemporaryDirectory(prefix="bench-choose-") as tmp:

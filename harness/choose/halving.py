@@ -38,6 +38,25 @@ CARE_WEIGHTS: dict[str, dict[str, float]] = {
     "labels": {"knn_accuracy": 1.0},
 }
 
+#: The global group when every dataset carries its true latent chart (synthetic data): the
+#: chart itself is the large-scale layout to keep.  Straight-line distances of a curved
+#: manifold (a rolled sheet's) are not its layout, so stress and Shepard's rho would reward
+#: keeping the roll instead of unrolling it.
+CHARTED_GLOBAL: dict[str, float] = {"latent_spearman": 2.0}
+
+
+def care_weights(care: str, charted: bool) -> dict[str, float]:
+    """The measure weights of ``care``; with a latent chart the global group is the chart's rho.
+
+    The group keeps its total weight (2), so ``balanced`` stays half local, half global.
+    """
+    weights = dict(CARE_WEIGHTS[care])
+    if charted and care in ("global", "balanced"):
+        for name in CARE_WEIGHTS["global"]:
+            weights.pop(name, None)
+        weights.update(CHARTED_GLOBAL)
+    return weights
+
 
 @dataclass(frozen=True)
 class Rung:
@@ -86,11 +105,17 @@ def plan_rungs(
     return [Rung(i, f, max(1, round(n_full * f)), s) for i, (f, s) in enumerate(plan)]
 
 
-def kept_count(count: int, eta: int, last: bool) -> int:
-    """Survivors of a rung of ``count`` candidates: the best ``ceil(count / eta)``, at least two."""
+def kept_count(count: int, eta: int, last: bool, before_last: bool = False) -> int:
+    """Survivors of a rung of ``count`` candidates: the best ``ceil(count / eta)``, at least two.
+
+    The rung before the last keeps at most :data:`FINALISTS`, so that the costliest rung (all
+    rows, every seed) holds the planned finalists even when candidates carried unjudged
+    through the small rungs made the pool larger than planned.
+    """
     if last:
         return count
-    return min(count, max(2, math.ceil(count / eta)))
+    keep = min(count, max(2, math.ceil(count / eta)))
+    return min(keep, FINALISTS) if before_last else keep
 
 
 def rung_suite(

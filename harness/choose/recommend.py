@@ -131,6 +131,12 @@ def recommendation_text(rec: Recommendation) -> str:
             ]
     weights = ", ".join(f"{k} {v:g}" for k, v in rec.weights.items())
     lines += [f"Care: {rec.care}; each measure's rank weighted: {weights}.", ""]
+    if "latent_spearman" in rec.weights:
+        lines += [
+            "The data carry their true latent chart, so the global side is judged against it "
+            "(latent_spearman), not against straight-line distances, which a curved manifold does not keep.",
+            "",
+        ]
     if rec.final:
         cols = list(rec.weights)
         header = ["place", "candidate", "mean rank", *cols]

@@ -26,8 +26,18 @@ from ..run.integrity import FORMAT, seal, seal_problem
 from ..suite import DatasetEntry, Suite, load_suite, parse_suite
 from ..suite.data import load_datasets
 from .budget import MIN_CELL_SECONDS, fit_time_model, parse_budget, show_seconds
-from .halving import CARE_WEIGHTS, ETA, SMALLEST_RUNG, Rung, kept_count, plan_rungs, rung_suite, standings
-from .pool import Pool, default_pool, invalid_at, suite_pool
+from .halving import (
+    CARE_WEIGHTS,
+    ETA,
+    SMALLEST_RUNG,
+    Rung,
+    care_weights,
+    kept_count,
+    plan_rungs,
+    rung_suite,
+    standings,
+)
+from .pool import Pool, default_pool, invalid_at, suite_pool, too_sparse_at
 from .recommend import (
     Recommendation,
     RungRecord,
@@ -74,12 +84,12 @@ def _base_suite(data: str | Path | Suite, label: str | None) -> tuple[Suite, boo
     return parse_suite(json.dumps(doc), str(data)), False
 
 
-def _weights(care: str, ks: Sequence[int], labelled: bool) -> dict[str, float]:
+def _weights(care: str, ks: Sequence[int], labelled: bool, charted: bool) -> dict[str, float]:
     if care not in CARE_WEIGHTS:
         raise InputError("--care", f"expected one of {', '.join(CARE_WEIGHTS)}, got {care!r}")
     if care == "labels" and not labelled:
         raise InputError("--care", "labels needs class labels in every dataset; give --label COLUMN")
-    return resolve_rank_by(CARE_WEIGHTS[care], tuple(ks))
+    return resolve_rank_by(care_weights(care, charted), tuple(ks))
 
 
 def choose(
@@ -106,7 +116,9 @@ def choose(
     budget : str or float
         ``90s``, ``10m``, ``1.5h`` or seconds.
     care : {"local", "global", "balanced", "labels"}
-        Which measures rank the candidates (weights in :data:`~harness.choose.halving.CARE_WEIGHTS`).
+        Which measures rank the candidates (weights in :data:`~harness.choose.halving.CARE_WEIGHTS`;
+        when every dataset carries a latent chart, the global group is the chart's
+        Spearman rho, see :func:`~harness.choose.halving.care_weights`).
     label : str, optional
         With a table file: the column of class labels.
     dimensions : int, optional
@@ -155,7 +167,8 @@ def choose(
     n0 = min(_rung_rows(sizes[e.name], rungs[0], shrinkable) for e in base.datasets)
     ks = [max(1, min(k, (n0 - 1) // 2 - 1)) for k in ks]
     labelled = all(ds.labels is not None for ds in loaded.values())
-    weights = _weights(care, ks, labelled)
+    charted = all(ds.latent is not None for ds in loaded.values())
+    weights = _weights(care, ks, labelled, charted)
     cores = jobs or os.cpu_count() or 1
     need = math.ceil(len(pool.candidates) / cores) * MIN_CELL_SECONDS
     if seconds_budget < need:
@@ -409,7 +422,12 @@ class _Session:
     ) -> tuple[RungRecord, list[dict[str, Any]], pd.DataFrame]:
 
         rows = min(_rung_rows(n, rung, self.shrinkable) for n in self.sizes.values())
-        carried = [n for n in alive if invalid_at(self.by_name[n].params, rows)]
+        carried = [
+            n
+            for n in alive
+            if invalid_at(self.by_name[n].params, rows)
+            or (not rung.full and too_sparse_at(self.by_name[n].params, rows))
+        ]
         runnable = [n for n in alive if n not in carried]
         partial = self.state.setdefault("partial", {}).get(str(rung.index)) or {}
         if partial.get("run_dir"):  # an interrupted rung: the same suite text, so its folder can resume
@@ -431,7 +449,7 @@ class _Session:
         for s in order:
             if not math.isnan(s.fit_seconds):
                 self.timings.setdefault(s.name, []).append((rung.size, s.fit_seconds))
-        keep = kept_count(len(order), self.eta, last)
+        keep = kept_count(len(order), self.eta, last, before_last=rung.index == len(self.rungs) - 2)
         kept = [s.name for s in order[:keep] if not math.isnan(s.mean_rank)] or [order[0].name]
         kept += carried
         cut = order[keep - 1].mean_rank if keep <= len(order) else math.nan

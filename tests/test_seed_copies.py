@@ -33,6 +33,8 @@ methods:
   - use: mds
     params: {max_iter: 20}
   - use: random_projection
+  - use: tsne
+    params: {perplexity: 10, max_iter: 250}
 measures:
   k: [5]
 """
@@ -59,7 +61,7 @@ def test_copies_score_like_fitting_every_seed(runs: tuple[RunFolder, RunFolder])
     shared, each = runs
     a = _measures(pd.read_csv(shared.path / "scores.csv"))
     b = _measures(pd.read_csv(each.path / "scores.csv"))
-    assert list(a.columns) == list(b.columns) and len(a) == len(b) == 24
+    assert list(a.columns) == list(b.columns) and len(a) == len(b) == 30
     numbers = [c for c in a.columns if pd.api.types.is_float_dtype(a[c])]
     # the reference is the run without sharing; equal to 1e-12 is the acceptance bound of the change
     np.testing.assert_allclose(a[numbers].to_numpy(), b[numbers].to_numpy(), rtol=0, atol=1e-12)
@@ -70,8 +72,8 @@ def test_only_seed_free_methods_are_copied(runs: tuple[RunFolder, RunFolder]) ->
     shared, each = runs
     s = shared.scores
     copied = s[s["copy_of"].fillna("") != ""]
-    # pca, classical_mds and mds from a classical start: 2 datasets x 3 methods x 2 later seeds
-    assert sorted(copied["method"].unique()) == ["classical_mds", "mds", "pca"] and len(copied) == 12
+    # pca, classical_mds, mds from a classical start, t-SNE from PCA: 2 datasets x 4 x 2 later seeds
+    assert sorted(copied["method"].unique()) == ["classical_mds", "mds", "pca", "tsne"] and len(copied) == 16
     assert set(copied["seed"]) == {1, 2}
     firsts = dict(zip(s["key"], s["seed"]))
     assert all(firsts[k] == 0 for k in copied["copy_of"])
@@ -88,6 +90,49 @@ def test_ignores_seed_follows_the_parameters() -> None:
     assert not get_method_spec("random_projection").ignores_seed({})
     assert get_method_spec("sammon").ignores_seed({"init": "pca"})
     assert not get_method_spec("sammon").ignores_seed({"init": "random"})
+    assert get_method_spec("tsne").ignores_seed({"init": "pca"})
+    assert not get_method_spec("tsne").ignores_seed({"init": "pca"}, precomputed=True)  # random start
+    assert not get_method_spec("tsne").ignores_seed({"init": "random"})
+
+
+_TSNE = {"perplexity": 10.0, "early_exaggeration": 12.0, "learning_rate": "auto", "max_iter": 250}
+_TSNE.update(init="pca", angle=0.5)
+
+
+def test_tsne_from_pca_matches_scikit_learn_where_its_start_is_exact() -> None:
+    # scikit-learn's PCA picks an exact solver for tall tables (>= 10 rows per feature), so its
+    # TSNE(init="pca") is the reference, to the bit, for every seed (scikit-learn 1.x, PCA._fit)
+    from sklearn.manifold import TSNE
+
+    from harness.methods.builtin import build_tsne
+
+    x = np.random.default_rng(3).normal(size=(120, 6))
+    ours = [build_tsne(2, seed, False, **_TSNE).fit_transform(x) for seed in (0, 5)]
+    ref = TSNE(n_components=2, random_state=0, **_TSNE).fit_transform(x)
+    assert np.array_equal(ours[0], ref) and np.array_equal(ours[1], ref)
+
+
+def test_tsne_from_pca_is_seed_free_where_scikit_learn_would_randomize_the_start() -> None:
+    # 600 rows x 80 features: scikit-learn's "auto" picks the randomized solver here (fewer than
+    # 10 rows per feature, more than 500 rows), so its start moves with the seed; ours is exact
+    from sklearn.manifold import TSNE
+
+    from harness.methods._tsne import exact_pca_start
+    from harness.methods.builtin import build_tsne
+
+    x = np.random.default_rng(4).normal(size=(600, 80))
+    ref = [TSNE(n_components=2, random_state=s, **_TSNE).fit_transform(x) for s in (0, 1)]
+    assert not np.array_equal(ref[0], ref[1])  # the premise: scikit-learn's fit moves with the seed
+    ours = [build_tsne(2, s, False, **_TSNE).fit_transform(x) for s in (0, 1)]
+    assert np.array_equal(ours[0], ours[1])
+    start = exact_pca_start(x, 2)
+    # the start spans the top-2 principal subspace (SciPy's SVD as the reference) at PC1 sd 1e-4
+    from scipy.linalg import svd
+
+    u, sv, _ = svd(x - x.mean(0), full_matrices=False)
+    pcs = u[:, :2] * sv[:2]
+    np.testing.assert_allclose(np.abs(start), np.abs(pcs / pcs[:, 0].std() * 1e-4), rtol=1e-3, atol=1e-9)
+    assert start.dtype == np.float32
 
 
 def test_sammon_from_pca_gives_the_same_bytes_for_every_seed_even_when_the_start_collapses(

@@ -35,6 +35,7 @@ from scipy.spatial import procrustes
 
 from ..errors import InputError
 from ..metrics import knn_overlap as neighbour_overlap
+from ..metrics import knn_overlap_pairs
 
 #: Resamples of the percentile bootstrap; enough for stable 2.5% / 97.5% quantiles.
 BOOTSTRAP_RESAMPLES = 4000
@@ -193,10 +194,14 @@ def embedding_stability(
     queries = None
     if n > max_queries:
         queries = np.sort(np.random.default_rng(seed).choice(n, size=max_queries, replace=False))
-    overlaps, disparities = [], []
-    for a, b in itertools.combinations(embs, 2):
-        overlaps.append(knn_overlap(a, b, k, queries=queries))
-        disparities.append(_disparity(a, b))
+    if not 1 <= k < n:
+        raise InputError("k", f"expected 1 <= k < n = {n}, got {k}")
+    if any(e.shape[0] != n for e in embs):
+        raise InputError("embeddings", f"expected the same number of rows, got {[e.shape[0] for e in embs]}")
+    overlaps = knn_overlap_pairs(embs, k, queries)
+    # identical embeddings (copies of a seed-free fit) have the same shape: disparity 0
+    pairs = itertools.combinations(embs, 2)
+    disparities = [0.0 if np.array_equal(a, b) else _disparity(a, b) for a, b in pairs]
     return Stability(
         float(np.mean(overlaps)),
         float(np.nanmean(disparities)) if np.isfinite(disparities).any() else math.nan,

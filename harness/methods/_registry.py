@@ -53,9 +53,10 @@ class MethodSpec:
         A method refused this way on every dataset of a suite stops the suite
         with that reason (it is bound to data, like a stored embedding).
     seed_free : callable, optional
-        ``seed_free(params) -> bool``: the output does not depend on the seed for
-        these parameters (checked by fitting two seeds and comparing bytes).  When
-        not given, a method that is not ``randomized`` is seed-free.
+        ``seed_free(params, precomputed) -> bool``: the output does not depend on the
+        seed for these parameters, on coordinates or (``precomputed``) on a distance
+        matrix (checked by fitting two seeds and comparing bytes).  When not given,
+        a method that is not ``randomized`` is seed-free.
     """
 
     name: str
@@ -71,12 +72,15 @@ class MethodSpec:
     requires: tuple[str, ...] = ()
     content_identity: Callable[[dict[str, Any], int], str] | None = None
     check_dataset: Callable[..., str] | None = None
-    seed_free: Callable[[dict[str, Any]], bool] | None = None
+    seed_free: Callable[[dict[str, Any], bool], bool] | None = None
 
-    def ignores_seed(self, params: dict[str, Any]) -> bool:
-        """Whether a fit with ``params`` gives the same bytes for every seed (fit once, copy the rest)."""
+    def ignores_seed(self, params: dict[str, Any], precomputed: bool = False) -> bool:
+        """Whether a fit with ``params`` gives the same bytes for every seed (fit once, copy the rest).
+
+        ``precomputed`` says the data are a distance matrix (some starts need coordinates).
+        """
         if self.seed_free is not None:
-            return bool(self.seed_free(params))
+            return bool(self.seed_free(params, precomputed))
         return not self.randomized
 
     def missing_package(self) -> str | None:
@@ -120,7 +124,7 @@ def register_method(
     requires: tuple[str, ...] = (),
     content_identity: Callable[[dict[str, Any], int], str] | None = None,
     check_dataset: Callable[..., str] | None = None,
-    seed_free: Callable[[dict[str, Any]], bool] | None = None,
+    seed_free: Callable[[dict[str, Any], bool], bool] | None = None,
 ) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
     """Decorator that adds an estimator builder to :data:`METHODS`."""
 

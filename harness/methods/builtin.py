@@ -11,13 +11,14 @@ from __future__ import annotations
 from typing import Any
 
 from sklearn.decomposition import PCA, KernelPCA
-from sklearn.manifold import MDS, TSNE, Isomap, LocallyLinearEmbedding, SpectralEmbedding
+from sklearn.manifold import MDS, Isomap, LocallyLinearEmbedding, SpectralEmbedding
 from sklearn.random_projection import GaussianRandomProjection
 
 from ..errors import InputError
 from ..params import Param, at_least, between
 from ._classical import ClassicalScaling
 from ._registry import register_method
+from ._tsne import ExactStartTSNE
 from .parametric import ParametricMDS, ParametricSammon, ParametricTSNE
 from .sammon import SammonMapping
 
@@ -119,7 +120,7 @@ def build_classical_mds(n_components: int, seed: int, precomputed: bool) -> Clas
     source="Kruskal 1964; de Leeuw 1977 (scikit-learn MDS)",
     # A classical-scaling start leaves scikit-learn's SMACOF nothing random: two seeds gave
     # byte-identical embeddings on every quickstart dataset.
-    seed_free=lambda params: params.get("init", "classical_mds") == "classical_mds",
+    seed_free=lambda params, precomputed: params.get("init", "classical_mds") == "classical_mds",
 )
 def build_mds(
     n_components: int, seed: int, precomputed: bool, *, init: str, n_init: int, max_iter: int, eps: float
@@ -160,7 +161,7 @@ def build_mds(
     accepts_distances=True,
     quadratic_memory=True,
     source="Sammon 1969 (own implementation)",
-    seed_free=lambda params: params.get("init", "pca") == "pca",
+    seed_free=lambda params, precomputed: params.get("init", "pca") == "pca",
 )
 def build_sammon(
     n_components: int, seed: int, precomputed: bool, *, init: str, max_iter: int, tol: float
@@ -187,7 +188,7 @@ def build_sammon(
     quadratic_memory=True,
     # Not fitted once for all seeds: scikit-learn's ARPACK start vector comes from the unseeded
     # global generator, so two processes give embeddings that differ in the last bits.
-    seed_free=lambda params: False,
+    seed_free=lambda params, precomputed: False,
     source="Tenenbaum, de Silva and Langford 2000 (scikit-learn Isomap)",
 )
 def build_isomap(n_components: int, seed: int, precomputed: bool, *, n_neighbors: int) -> Isomap:
@@ -281,6 +282,9 @@ def build_laplacian_eigenmaps(
     family="neighbour",
     accepts_distances=True,
     source="van der Maaten and Hinton 2008; van der Maaten 2014 (scikit-learn TSNE)",
+    # The PCA start is exact (harness/methods/_tsne.py) and Barnes-Hut draws nothing, so the seed
+    # only matters for a random start (always so on a distance matrix).
+    seed_free=lambda params, precomputed: params.get("init", "pca") == "pca" and not precomputed,
 )
 def build_tsne(
     n_components: int,
@@ -293,9 +297,9 @@ def build_tsne(
     max_iter: int,
     init: str,
     angle: float,
-) -> TSNE:
+) -> ExactStartTSNE:
     """t-SNE; PCA start is impossible from distances, and Barnes-Hut works up to 3 dimensions."""
-    return TSNE(
+    return ExactStartTSNE(
         n_components=n_components,
         perplexity=perplexity,
         early_exaggeration=early_exaggeration,

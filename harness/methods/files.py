@@ -264,7 +264,7 @@ def content_identity(params: dict[str, Any], seed: int) -> str:
     content_identity=content_identity,
     check_dataset=check_dataset,
     # one stored embedding for every seed, unless the path names a file per seed
-    seed_free=lambda params: SEED_FIELD not in str(params.get("path", "")),
+    seed_free=lambda params, precomputed: SEED_FIELD not in str(params.get("path", "")),
     source="user file",
 )
 def build_embedding_file(

@@ -31,7 +31,7 @@ from ._intervals import local_estimates
 from ._labels import knn_accuracy, silhouette
 from ._local import PER_K, collect, curve_table
 from ._memory import block_rows, default_memory_bytes
-from ._neighbours import knn_overlap
+from ._neighbours import knn_overlap, knn_overlap_pairs
 from ._prepared import SETTINGS, DataSide, make_data_side
 from ._ranks import rank_blocks
 from ._rnx_area import rnx_area
@@ -47,6 +47,7 @@ __all__ = [
     "evaluate",
     "higher_is_better",
     "knn_overlap",
+    "knn_overlap_pairs",
     "measure_stem",
     "placement_measures",
     "pointwise",

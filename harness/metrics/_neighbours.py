@@ -96,6 +96,38 @@ def knn_overlap(a: np.ndarray, b: np.ndarray, k: int, queries: np.ndarray | None
     """
     na = np.sort(nearest_neighbours(a, k, queries), axis=1)
     nb = np.sort(nearest_neighbours(b, k, queries), axis=1)
+    return _shared_share(na, nb, k)
+
+
+def knn_overlap_pairs(embeddings: list[np.ndarray], k: int, queries: np.ndarray | None = None) -> list[float]:
+    """:func:`knn_overlap` of every pair of embeddings, in ``itertools.combinations`` order.
+
+    Each embedding's neighbour lists are found once; byte-identical embeddings
+    (the copies of a seed-free fit) share theirs and agree fully.
+
+    Parameters
+    ----------
+    embeddings : list of ndarray of shape (n, d)
+        Embeddings of the same points (rows match); ``1 <= k < n``.
+    k : int
+    queries : ndarray of int, optional
+        Points whose neighbourhoods are compared (all by default).
+
+    Returns
+    -------
+    list of float
+        One overlap per pair ``(i, j)``, ``i < j``.
+    """
+    lists: list[np.ndarray] = []
+    for i, e in enumerate(embeddings):
+        same = next((j for j in range(i) if np.array_equal(embeddings[j], e)), None)
+        lists.append(lists[same] if same is not None else np.sort(nearest_neighbours(e, k, queries), axis=1))
+    return [_shared_share(lists[i], lists[j], k) for i in range(len(lists)) for j in range(i + 1, len(lists))]
+
+
+def _shared_share(na: np.ndarray, nb: np.ndarray, k: int) -> float:
+    if na is nb:
+        return 1.0
     shared = 0
     for start in range(0, len(na), 1024):  # bounds the (rows, k, k) comparison
         sa, sb = na[start : start + 1024], nb[start : start + 1024]

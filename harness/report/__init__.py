@@ -9,6 +9,7 @@ reads a run folder; it never runs anything.
 
 from __future__ import annotations
 
+import functools
 import logging
 from pathlib import Path
 
@@ -17,6 +18,7 @@ from ..datasets import Dataset
 from ..errors import InputError
 from ..run.folder import RunFolder
 from ..suite import load_datasets
+from ._drawing import Drawer, draw_figures
 
 log = logging.getLogger(__name__)
 
@@ -63,19 +65,21 @@ def write_report(run_dir: str | Path | RunFolder, *, quality: str = "mean_rank",
     analysis = analyse(folder, quality=quality, alpha=alpha)
     datasets = _datasets(folder, analysis.notes)
     out = folder.path / "figures"
-    drawn = {
-        "embeddings": fig.embedding_grid(analysis, datasets, out / FIGURES["embeddings"]),
-        "heatmaps": fig.heatmaps(analysis, out / FIGURES["heatmaps"]),
-        "rnx": fig.rnx_curves(analysis, out / FIGURES["rnx"]),
-        "shepard": fig.shepard(analysis, datasets, out / FIGURES["shepard"]),
-        "cd": fig.critical_difference_diagram(analysis, out / FIGURES["cd"]),
-        "pareto": fig.quality_vs_time(analysis, out / FIGURES["pareto"]),
-    }
     defects = point_defects(analysis)
+    drawers: dict[str, Drawer] = {
+        "embeddings": lambda: fig.embedding_grid(analysis, datasets, out / FIGURES["embeddings"]),
+        "heatmaps": lambda: fig.heatmaps(analysis, out / FIGURES["heatmaps"]),
+        "rnx": lambda: fig.rnx_curves(analysis, out / FIGURES["rnx"]),
+        "shepard": lambda: fig.shepard(analysis, datasets, out / FIGURES["shepard"]),
+        "cd": lambda: fig.critical_difference_diagram(analysis, out / FIGURES["cd"]),
+        "pareto": lambda: fig.quality_vs_time(analysis, out / FIGURES["pareto"]),
+    }
     for name, per_method in defects.items():
-        drawn[f"points:{name}"] = fig.point_defect_maps(
-            analysis, per_method, out / f"points_{_file_name(name)}.png"
+        drawers[f"points:{name}"] = functools.partial(
+            fig.point_defect_maps, analysis, per_method, out / f"points_{_file_name(name)}.png"
         )
+    # about half the drawing time each way on the quickstart suite (bench/bench_quickstart.py)
+    drawn = draw_figures(drawers, in_child=("heatmaps", "embeddings", "cd", "pareto"))
     folder.write_text("tables.md", tables_markdown(analysis))
     folder.write_text("tables.tex", tables_latex(analysis))
     page = folder.write_text(

@@ -30,10 +30,12 @@ DPI = 110
 SHEPARD_PAIRS = 1500
 
 
-def _save(fig: Figure, path: Path) -> Path:
-    # A bare Figure (no pyplot) renders with the Agg canvas and keeps no global state.
+def _save(fig: Figure, path: Path, *, trim: bool = True) -> Path:
+    # A bare Figure (no pyplot) renders with the Agg canvas and keeps no global state.  ``trim``
+    # crops to the drawn content, which costs a second full draw; a figure laid out by
+    # tight_layout with nothing outside its axes passes False.
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=DPI, bbox_inches="tight" if trim else None)
     write_bytes(path, buf.getvalue())
     return path
 
@@ -171,7 +173,7 @@ def heatmaps(analysis: Analysis, path: Path) -> Path | None:
         for ax in axes.ravel()[len(measures) :]:
             ax.set_visible(False)
         fig.tight_layout()
-        return _save(fig, path)
+        return _save(fig, path, trim=False)
 
 
 def _matrix(ax: Axes, values: np.ndarray, shown: np.ndarray, cmap, fmt: str) -> None:
@@ -196,7 +198,7 @@ def _matrix(ax: Axes, values: np.ndarray, shown: np.ndarray, cmap, fmt: str) -> 
             va="center",
             fontsize=7,
             color=palette.PAPER if dark else palette.INK,
-        )
+        ).set_in_layout(False)  # inside its cell: no need to measure it for the layout
     ax.set_xticks(np.arange(-0.5, values.shape[1]), minor=True)
     ax.set_yticks(np.arange(-0.5, values.shape[0]), minor=True)
     ax.grid(which="minor", color=palette.PAPER, linewidth=1.5)

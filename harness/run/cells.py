@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -158,7 +159,7 @@ def plan(suite: Suite, datasets: dict[str, Dataset]) -> tuple[list[Cell], list[C
     return cells, refused
 
 
-def seed_copies(cells: list[Cell], suite: Suite) -> dict[str, Cell]:
+def seed_copies(cells: list[Cell], suite: Suite, datasets: Mapping[str, Dataset]) -> dict[str, Cell]:
     """The cells that repeat another cell's fit: key of the copy -> the cell fitted for it.
 
     A method whose output does not depend on the seed for its parameters
@@ -173,7 +174,7 @@ def seed_copies(cells: list[Cell], suite: Suite) -> dict[str, Cell]:
         if cell.holdout is not None:
             continue  # every seed draws its own held-out split, so no two seeds fit the same points
         spec = get_method_spec(cell.use, roots=suite.plugin_roots)
-        if not spec.ignores_seed(cell.params_dict()):
+        if not spec.ignores_seed(cell.params_dict(), datasets[cell.dataset].is_precomputed):
             continue
         config = (cell.dataset, cell.method, cell.use, cell.params, cell.dimensions, cell.data_fingerprint)
         source = first.setdefault(config, cell)

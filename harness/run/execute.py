@@ -165,7 +165,7 @@ def execute_suite(
         with _stop_on_signals(stop):
             counter = _Progress(len(done_keys & {c.key for c in order}), len(order), progress)
             rows = {name: d.n for name, d in datasets.items()}
-            copies = seed_copies(cells, suite) if share_seed_free else {}
+            copies = seed_copies(cells, suite, datasets) if share_seed_free else {}
             todo = _store_known(suite, folder, cells, refused, done_keys, cache, counter, rows, copies)
             todo = _copy_finished(todo, copies, folder, counter, _cache_writer(cache, suite))
             deferred = [c for c in todo if c.key in copies]

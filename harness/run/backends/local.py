@@ -375,6 +375,9 @@ class LocalBackend:
     ) -> Iterator[CellResult]:
         jobs = max(1, min(execution.jobs, len(cells)))
         threads = max(1, (os.cpu_count() or 1) // jobs)
+        # Largest data first (stable: plan order within a dataset), so the long fits start early and
+        # the small cells fill the last lanes; results are stored by key, so the order is not seen.
+        cells = sorted(cells, key=lambda c: -datasets[c.dataset].n)
         sweep_staging()
         _start_fork_server()
         halt = threading.Event()  # set when the consumer stops early: running cells end at once

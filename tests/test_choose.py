@@ -218,8 +218,7 @@ def test_a_candidate_predicted_to_overrun_is_dropped_for_budget(tmp_path, write_
           - use: "runner_plugins:SlowsWithSize"
             name: slow
           - use: random_projection
-          - use: isomap
-            params: {n_neighbors: 5}
+          - use: classical_mds
         """
     )
     rec = choose(suite, budget="15s", care="global", out=tmp_path / "dear", jobs=2)
@@ -401,3 +400,17 @@ def test_when_the_budget_runs_out_the_answer_is_the_best_so_far_and_says_so(tmp_
     assert set(dict(rec.budget_dropped)) == set(rec.rungs[0].kept)
     text = (tmp_path / "dear" / "recommendation.md").read_text(encoding="utf-8")
     assert "The budget ran out before the last rung" in text
+
+
+def test_the_rung_before_the_last_has_enough_rows_for_neighbour_graphs():
+    # plumbing of our own rule (GRAPH_RUNG): 600 rows would halve at 67 and 200 rows; with graph
+    # candidates the rung before the last is raised to 300 rows (one seed), the first is kept
+    plain = plan_rungs(600, 22, (0, 1, 2))
+    raised = plan_rungs(600, 22, (0, 1, 2), before_last_rows=GRAPH_RUNG)
+    assert [(r.size, len(r.seeds)) for r in plain] == [(67, 1), (200, 1), (600, 3)]
+    assert [(r.size, len(r.seeds)) for r in raised] == [(67, 1), (GRAPH_RUNG, 1), (600, 3)]
+    # data smaller than the rule: that rung is on all rows with one seed
+    small = plan_rungs(250, 22, (0, 1, 2), before_last_rows=GRAPH_RUNG)
+    assert [(r.size, len(r.seeds)) for r in small] == [(83, 1), (250, 1), (250, 3)]
+    # already large enough: unchanged
+    assert plan_rungs(1000, 22, (0, 1, 2), before_last_rows=GRAPH_RUNG) == plan_rungs(1000, 22, (0, 1, 2))

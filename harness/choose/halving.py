@@ -74,7 +74,13 @@ class Rung:
 
 
 def plan_rungs(
-    n_full: int, n_candidates: int, seeds: Sequence[int], *, eta: int = ETA, subsample: bool = True
+    n_full: int,
+    n_candidates: int,
+    seeds: Sequence[int],
+    *,
+    eta: int = ETA,
+    subsample: bool = True,
+    before_last_rows: int = 0,
 ) -> list[Rung]:
     """The rungs for ``n_candidates`` on data of ``n_full`` rows (the largest dataset).
 
@@ -82,6 +88,9 @@ def plan_rungs(
     the sizes below the full data are ``n_full / eta**j`` down to
     :data:`SMALLEST_RUNG` (more are added while the first is above
     :data:`LARGEST_FIRST_RUNG`); without ``subsample`` every rung is at full size.
+    The rung before the last has at least ``before_last_rows`` rows (all of them, one seed,
+    when the data have fewer), so that candidates which cannot be judged on fewer rows
+    (neighbour graphs) meet the others there rather than all at the costliest rung.
     """
     halvings, count = 0, n_candidates
     while count > FINALISTS:
@@ -99,6 +108,9 @@ def plan_rungs(
     plan: list[tuple[float, tuple[int, ...]]] = [(f, (seeds[0],)) for f in fractions]
     if len(plan) < halvings:  # too small to shrink further: one seed on all rows, then every seed
         plan.append((1.0, (seeds[0],)))
+    if plan and n_full * plan[-1][0] < before_last_rows:
+        raised = min(1.0, before_last_rows / n_full)
+        plan = [p for p in plan[:-1] if p[0] < raised] + [(raised, (seeds[0],))]
     plan.append((1.0, tuple(seeds)))
     if len(plan) > 1 and plan[-1] == plan[-2]:
         plan.pop(-2)

@@ -37,7 +37,7 @@ from .halving import (
     rung_suite,
     standings,
 )
-from .pool import Pool, default_pool, invalid_at, suite_pool, too_sparse_at
+from .pool import GRAPH_RUNG, Pool, default_pool, invalid_at, suite_pool, too_sparse_at
 from .recommend import (
     Recommendation,
     RungRecord,
@@ -162,7 +162,15 @@ def choose(
     if not pool.candidates:
         reasons = "; ".join(f"{n}: {r}" for n, r in pool.left_out) or "no methods"
         raise InputError("candidate pool", f"empty after the size guard ({reasons})")
-    rungs = plan_rungs(n_full, len(pool.candidates), seeds, eta=eta, subsample=shrinkable)
+    graphs = any(too_sparse_at(c.params, 0) for c in pool.candidates)
+    rungs = plan_rungs(
+        n_full,
+        len(pool.candidates),
+        seeds,
+        eta=eta,
+        subsample=shrinkable,
+        before_last_rows=GRAPH_RUNG if graphs else 0,
+    )
     ks = list(base.scoring.ks) if pool_from_suite else [10]
     n0 = min(_rung_rows(sizes[e.name], rungs[0], shrinkable) for e in base.datasets)
     ks = [max(1, min(k, (n0 - 1) // 2 - 1)) for k in ks]

@@ -13,6 +13,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from harness.choose import choose, fit_time_model, parse_budget, plan_rungs
@@ -414,3 +415,22 @@ def test_the_rung_before_the_last_has_enough_rows_for_neighbour_graphs():
     assert [(r.size, len(r.seeds)) for r in small] == [(83, 1), (250, 1), (250, 3)]
     # already large enough: unchanged
     assert plan_rungs(1000, 22, (0, 1, 2), before_last_rows=GRAPH_RUNG) == plan_rungs(1000, 22, (0, 1, 2))
+
+
+def test_equal_mean_ranks_go_to_the_better_place_at_the_rung_before():
+    # plumbing of our own tie rule: three finalists ranked on four measures tie often; the rung
+    # before compared them with more candidates, so its order decides, then the cheaper fit
+    from harness.choose.halving import standings
+
+    ranked = pd.DataFrame(
+        {
+            "method": ["cheap", "mid", "dear"],
+            "mean_rank": [2.0, 2.0, 2.0],
+            "fit_seconds": [0.1, 1.0, 5.0],
+            "seeds_failed": [0, 0, 0],
+        }
+    )
+    plain = standings(ranked, {}, ["cheap", "mid", "dear"])
+    assert [s.name for s in plain] == ["cheap", "mid", "dear"]  # no history: the cheaper fit
+    told = standings(ranked, {}, ["cheap", "mid", "dear"], {"dear": 1, "cheap": 2, "mid": 3})
+    assert [s.name for s in told] == ["dear", "cheap", "mid"] and [s.place for s in told] == [1, 2, 3]

@@ -198,11 +198,20 @@ class Standing:
     status: str = "ok"
 
 
-def standings(ranked: pd.DataFrame, rank_by: Mapping[str, float], names: Sequence[str]) -> list[Standing]:
+def standings(
+    ranked: pd.DataFrame,
+    rank_by: Mapping[str, float],
+    names: Sequence[str],
+    before: Mapping[str, int] | None = None,
+) -> list[Standing]:
     """Candidates of a rung best first: the mean over datasets of their weighted mean rank.
 
-    A candidate with no ranked result (every cell failed or timed out) comes last.
+    Equal mean ranks go to the better place at the rung before (``before``: name -> place
+    where the candidate was last judged, among more candidates; few finalists tie often),
+    then to the cheaper fit, then to the name.  A candidate with no ranked result (every
+    cell failed or timed out) comes last.
     """
+    before = before or {}
     out = []
     for name in names:
         rows = ranked[ranked["method"] == name]
@@ -220,11 +229,11 @@ def standings(ranked: pd.DataFrame, rank_by: Mapping[str, float], names: Sequenc
         if failed and status == "ok":
             status = f"ok ({failed} cell(s) failed)"
         out.append(Standing(name, mean_rank, 0, measures, fit, status))
-    # equal mean ranks go to the cheaper fit (then the name, so the order is reproducible)
     out.sort(
         key=lambda s: (
             math.isnan(s.mean_rank),
             0.0 if math.isnan(s.mean_rank) else s.mean_rank,
+            before.get(s.name, len(before) + 1),
             math.inf if math.isnan(s.fit_seconds) else s.fit_seconds,
             s.name,
         )

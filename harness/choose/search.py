@@ -350,7 +350,7 @@ class _Session:
                     records[-1].budget_dropped += budget_dropped
                 break
             try:
-                record, frame, scores = self._run_rung(rung, alive, cell_limit, last)
+                record, frame, scores = self._run_rung(rung, alive, cell_limit, last, _places(records))
             except RunInterrupted:
                 self._save()
                 raise
@@ -426,7 +426,7 @@ class _Session:
         return kept, dropped, max(1.0, remaining / waves)
 
     def _run_rung(
-        self, rung: Rung, alive: list[str], cell_limit: float, last: bool
+        self, rung: Rung, alive: list[str], cell_limit: float, last: bool, before: Mapping[str, int]
     ) -> tuple[RungRecord, list[dict[str, Any]], pd.DataFrame]:
 
         rows = min(_rung_rows(n, rung, self.shrinkable) for n in self.sizes.values())
@@ -452,7 +452,7 @@ class _Session:
             raise
         seconds = time.monotonic() - t0
         ranked = summary.ranking.ranked
-        order = standings(ranked, summary.rank_by, runnable)
+        order = standings(ranked, summary.rank_by, runnable, before)
         frame = [self._row(s, ranked) for s in order]
         for s in order:
             if not math.isnan(s.fit_seconds):
@@ -606,3 +606,12 @@ class _Session:
             "seconds": seconds,
             "run_dir": str(summary.run_dir),
         }
+
+
+def _places(records: Sequence[RungRecord]) -> dict[str, int]:
+    """Each candidate's place at the latest rung where it was judged (the tie-break of the next)."""
+    places: dict[str, int] = {}
+    for record in records:
+        for row in record.ranking:
+            places[row["name"]] = int(row["place"])
+    return places

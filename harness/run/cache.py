@@ -268,8 +268,9 @@ class EmbeddingCache:
             return
         key = cache_key(cell)
         npy, meta = self._paths(key)
-        write_npy(npy, embedding)
-        write_json(meta, self._document(cell, embedding, fit_seconds, fit_peak_mb, {}))
+        # not flushed one by one: an entry is used only when it verifies against its seal (atomic.py)
+        write_npy(npy, embedding, durable=False)
+        write_json(meta, self._document(cell, embedding, fit_seconds, fit_peak_mb, {}), durable=False)
 
     @staticmethod
     def _document(
@@ -299,8 +300,9 @@ class EmbeddingCache:
         if result.embedding is None or cell.holdout is not None or not self._ensure_root():
             return
         found = self._entry(cell, None) if result.from_cache else None
-        if found is None:
-            self.put(cell, result.embedding, result.fit_seconds, result.fit_peak_mb)
+        npy, meta = self._paths(cache_key(cell))
+        if found is None:  # a new entry: its array now, its sealed document (with the scores) below
+            write_npy(npy, result.embedding, durable=False)
             scores: dict[str, Any] = {}
         else:
             scores = dict(found[0].get("scores") or {})
@@ -314,9 +316,10 @@ class EmbeddingCache:
             "score_seconds": result.score_seconds,
             "warnings": list(result.warnings),
         }
-        _npy, meta = self._paths(cache_key(cell))
         write_json(
-            meta, self._document(cell, result.embedding, result.fit_seconds, result.fit_peak_mb, scores)
+            meta,
+            self._document(cell, result.embedding, result.fit_seconds, result.fit_peak_mb, scores),
+            durable=False,
         )
 
     def get_result(self, cell: Cell, scoring: Scoring, rows: int | None = None) -> CellResult | None:

@@ -391,13 +391,14 @@ class RunFolder:
     def write_cell(self, result: CellResult) -> None:
         """Store one finished cell: embedding and curve first, its JSON record last."""
         key = result.cell.key
+        # not flushed one by one: every reader checks them against the record's seal (atomic.py)
         if result.embedding is not None:
-            atomic.write_npy(self.path / "embeddings" / f"{key}.npy", result.embedding)
+            atomic.write_npy(self.path / "embeddings" / f"{key}.npy", result.embedding, durable=False)
         if result.curve is not None:
-            atomic.write_csv(self.path / "curves" / f"{key}.csv", result.curve)
+            atomic.write_csv(self.path / "curves" / f"{key}.csv", result.curve, durable=False)
         if result.points is not None:
-            atomic.write_csv(self.path / "points" / f"{key}.csv", result.points)
-        atomic.write_json(self.path / "cells" / f"{key}.json", cell_record(result))
+            atomic.write_csv(self.path / "points" / f"{key}.csv", result.points, durable=False)
+        atomic.write_json(self.path / "cells" / f"{key}.json", cell_record(result), durable=False)
         self._forget()
 
     def write_copy(self, source: str, cell: Cell) -> CellResult | None:
@@ -426,11 +427,11 @@ class RunFolder:
                 return None
             blobs[f"{folder}/{cell.key}.{ext}"] = (self.path / folder / f"{source}.{ext}").read_bytes()
         for name, data in blobs.items():
-            self.write_bytes(name, data)
+            atomic.write_bytes(self.path / name, data, durable=False)
         doc = {k: v for k, v in record.items() if k != "sha256"}
         doc.update(key=cell.key, cell=cell.as_dict(), copy_of=source)
         doc["finished"] = datetime.now(UTC).isoformat(timespec="seconds")
-        atomic.write_json(self.path / "cells" / f"{cell.key}.json", seal(doc))
+        atomic.write_json(self.path / "cells" / f"{cell.key}.json", seal(doc), durable=False)
         self._forget()
         return CellResult(
             cell,

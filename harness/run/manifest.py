@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import importlib.metadata as md
 import importlib.util
@@ -29,8 +30,15 @@ TRACKED = ("foldbench", "numpy", "scipy", "scikit-learn", "pandas", "joblib", "t
 
 def package_versions(extra_modules: tuple[str, ...] = ()) -> dict[str, str]:
     """Installed versions of the tracked distributions and of plug-in modules' packages."""
+    return dict(_package_versions(tuple(extra_modules)))
+
+
+@functools.lru_cache(maxsize=32)
+def _package_versions(extra_modules: tuple[str, ...]) -> dict[str, str]:
+    # Once per process: scanning the installed distributions takes about 0.5 s, and a
+    # choose or a test session opens many runs.
     names = list(TRACKED)
-    owners = md.packages_distributions()
+    owners = md.packages_distributions() if extra_modules else {}
     for module in extra_modules:
         names += owners.get(module.split(".", 1)[0], [])
     out = {}

@@ -10,6 +10,8 @@ For each n (D = 50 data, a 2-D embedding), interleaved in one process, best of `
 * ``dask 2w``    the same on 2 worker processes of one thread each.
 
 Every run's values are checked to equal the local engine's (``==``) before a time is printed.
+A second table times the engine's walk alone (the data already on the workers), where the
+scaling with workers is not hidden by the parts that stay on the caller.
 
 Then the seconds to send both spaces to 2 workers, and the inputs of the time model of
 docs/cluster.md, measured at n = 1,000,000 (``--quick``: 100,000) on one thread exactly as a
@@ -127,6 +129,37 @@ def at_scale(n: int, rows: int) -> dict[str, float]:
     }
 
 
+def walk_seconds(x: np.ndarray, y: np.ndarray, clusters: dict, repeat: int) -> dict:
+    """Best seconds of the engine's walk alone (K = 100): local (its own threads) and per cluster.
+
+    The data are on the workers before the clock starts; each cluster's per-point terms are
+    checked to equal the local ones.
+    """
+    n = len(x)
+    data_rows, emb_rows = DistanceRows(points=standard_points(x)), DistanceRows(points=standard_points(y))
+    queries = np.arange(n)
+    step = block_rows(n, n, default_memory_bytes(), data_rows.nbytes + emb_rows.nbytes + n * 64)
+    best: dict = {"local": np.inf}
+    reference = None
+    for _ in range(repeat):
+        seconds, reference = timed(
+            lambda: collect(RankWalk(data_rows, emb_rows, queries, 100, step), n, [10], 100)
+        )
+        best["local"] = min(best["local"], seconds)
+    for workers, cluster in clusters.items():
+        best[workers] = np.inf
+        with connect(cluster.scheduler_address) as client:
+            spread = ClusterMeasures(client, data_rows, emb_rows)
+            for _ in range(repeat):
+                seconds, terms = timed(lambda s=spread: s.local_terms(queries, 100, step, [10], 100))
+                best[workers] = min(best[workers], seconds)
+                same = all(np.array_equal(terms.terms[k], reference.terms[k]) for k in reference.terms)
+                if not same or not np.array_equal(terms.overlap_sum, reference.overlap_sum):
+                    raise SystemExit(f"the walk on {workers} workers differs from the local engine at n={n}")
+            spread.close()
+    return best
+
+
 def send_seconds(n: int, scheduler: str) -> float:
     """Seconds to connect and broadcast both spaces of ``n`` points to the cluster's workers."""
     x, y = data(n)
@@ -176,6 +209,14 @@ def main() -> None:
                             f"dask with {workers} workers differs from the local engine at n={n}"
                         )
                     best[workers] = min(best[workers], seconds)
+            loc, one, two = best["local"], best[1], best[2]
+            ratios = f"{one / loc:.2f} | {two / loc:.2f} | {two / one:.2f}"
+            print(f"| {n:,} | {loc:.2f} | {one:.2f} | {two:.2f} | {ratios} |")
+        print("\nthe engine's walk alone (K = 100; data already on the workers):\n")
+        print("| n | local s | dask 1w s | dask 2w s | 1w / local | 2w / local | 2w / 1w |")
+        print("|---|---|---|---|---|---|---|")
+        for n in sizes:
+            best = walk_seconds(*data(n), clusters, args.repeat)
             loc, one, two = best["local"], best[1], best[2]
             ratios = f"{one / loc:.2f} | {two / loc:.2f} | {two / one:.2f}"
             print(f"| {n:,} | {loc:.2f} | {one:.2f} | {two:.2f} | {ratios} |")

@@ -10,6 +10,8 @@ terms in query order, integer overlap counts summed), so equality is exact: ``==
 
 from __future__ import annotations
 
+import sys
+
 import numpy as np
 import pytest
 
@@ -129,6 +131,13 @@ def test_an_unreachable_scheduler_is_one_line_naming_it(monkeypatch):
     assert message.startswith("scheduler: expected the address of a running Dask scheduler")
     assert "'tcp://127.0.0.1:9'" in message
     assert "\n" not in message
+
+
+def test_without_the_dask_extra_is_one_line(monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # the import then raises ImportError
+    x, y, _ = _curved(50)
+    with pytest.raises(InputError, match=r"^backend: backend='dask' needs the dask extra: pip install"):
+        evaluate(x, y, backend="dask", scheduler="tcp://127.0.0.1:9")
 
 
 SUITE = """name: spread

@@ -107,14 +107,14 @@ class ClusterMeasures:
     """
 
     def __init__(self, client: Any, data: DistanceRows, embedding: DistanceRows) -> None:
+        threads = sum(client.nthreads().values())
+        if threads == 0:  # checked first: a broadcast to no worker would wait for one
+            raise InputError("scheduler", f"a cluster with workers; {client.scheduler.address} has none")
         self.client = client
         self.n = data.n
+        self.threads = threads
         self._rows = client.scatter([data, embedding], broadcast=True, hash=False)
         self._ranks: Any = None
-        threads = sum(client.nthreads().values())
-        if threads == 0:
-            raise InputError("scheduler", f"a cluster with workers; {client.scheduler.address} has none")
-        self.threads = threads
         log.info("neighbourhood measures on %d worker threads of %s", threads, client.scheduler.address)
 
     def close(self) -> None:

@@ -21,7 +21,7 @@ from harness import evaluate  # noqa: E402
 from harness.errors import InputError  # noqa: E402
 from harness.metrics import _cluster, score  # noqa: E402
 from harness.run.execute import execute_suite  # noqa: E402
-from harness.suite import parse_suite  # noqa: E402
+from harness.suite import load_datasets, parse_suite  # noqa: E402
 
 
 @pytest.fixture(scope="module")
@@ -140,6 +140,17 @@ def test_without_the_dask_extra_is_one_line(monkeypatch):
         evaluate(x, y, backend="dask", scheduler="tcp://127.0.0.1:9")
 
 
+#: Measures computed on the workers (docs/cluster.md, "What runs where").
+SPREAD_MEASURES = (
+    "trustworthiness",
+    "continuity",
+    "knn_recall",
+    "mrre_data",
+    "mrre_embedding",
+    "lcmc",
+    "rnx_auc",
+)
+
 SUITE = """name: spread
 seeds: 1
 datasets:
@@ -171,7 +182,32 @@ def test_a_suite_with_measures_on_the_cluster_scores_as_the_local_run(tmp_path):
             scores[where] = table.drop(columns=[c for c in table if "seconds" in c or "_mb" in c])
             walked.append(any("walk_part" in name for name in one.scheduler.task_prefixes))
     assert walked == [False, True]
-    assert scores["dask"].equals(scores["local"])
+    local, spread = scores["local"], scores["dask"]
+    on_workers = [c for c in local if c.split("@")[0] in SPREAD_MEASURES]
+    assert len(on_workers) == 7 * 2 + 1  # seven at each of k = 5, 10, and the full-range rnx_auc
+    assert spread[on_workers].equals(local[on_workers])
+    # The distance measures are computed in the cell in both runs, not on the cluster; two runs of
+    # the same suite can differ there in the last bits (seen on the local backend too: the order
+    # of float sums, not a different method), so they are compared to 1e-12, the rest exactly.
+    rest = [c for c in local if c not in on_workers]
+    numeric = [c for c in rest if local[c].dtype.kind == "f"]
+    assert spread[[c for c in rest if c not in numeric]].equals(local[[c for c in rest if c not in numeric]])
+    assert np.allclose(spread[numeric], local[numeric], rtol=1e-12, atol=0, equal_nan=True)
+
+
+def test_a_suite_on_the_cluster_the_run_starts_itself(tmp_path):
+    # No scheduler given: the run starts worker processes of its own, and each cell (a task on one
+    # of them) finds the scheduler's address from its worker and leaves its thread while it waits.
+    suite = parse_suite(SUITE.replace("BACKEND", "dask").replace("seeds: 1", "seeds: 2") + "  jobs: 2\n")
+    run = execute_suite(suite, tmp_path)
+    table = run.folder.scores
+    assert list(table["status"]) == ["ok", "ok"]
+    x = load_datasets(suite)["rolled_sheet"]
+    reference = score(x.X, run.folder.embedding(table["key"].iloc[0]), ks=[5, 10], latent=x.latent)
+    row = table.iloc[0]
+    for key in reference.values:
+        if key.split("@")[0] in SPREAD_MEASURES:
+            assert row[key] == reference.values[key], key
 
 
 def test_the_suite_field_names_the_allowed_values():

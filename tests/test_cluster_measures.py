@@ -186,9 +186,9 @@ def test_a_suite_with_measures_on_the_cluster_scores_as_the_local_run(tmp_path):
     on_workers = [c for c in local if c.split("@")[0] in SPREAD_MEASURES]
     assert len(on_workers) == 7 * 2 + 1  # seven at each of k = 5, 10, and the full-range rnx_auc
     assert spread[on_workers].equals(local[on_workers])
-    # The distance measures are computed in the cell in both runs, not on the cluster; two runs of
-    # the same suite can differ there in the last bits (seen on the local backend too: the order
-    # of float sums, not a different method), so they are compared to 1e-12, the rest exactly.
+    # The distance measures are computed in the cell in both runs, not on the cluster, and their last
+    # bits follow the BLAS thread count (docs/cluster.md, "Same numbers as the local backend"), so
+    # they are held to 1e-12; everything else exactly.
     rest = [c for c in local if c not in on_workers]
     numeric = [c for c in rest if local[c].dtype.kind == "f"]
     assert spread[[c for c in rest if c not in numeric]].equals(local[[c for c in rest if c not in numeric]])

@@ -12,8 +12,8 @@ check_runs(current, baseline, ...) -> CheckOutcome
     Compare a run with a baseline: ``.table`` and ``.passed``.
 rerun(run_dir) -> RerunOutcome
     Run a finished run again and compare cell by cell.
-evaluate(X, Y, k=10, labels=None, metric="euclidean") -> dict
-    Score one embedding.
+evaluate(X, Y, k=10, labels=None, metric="euclidean", backend="local", scheduler=None) -> dict
+    Score one embedding (``backend="dask"``: its neighbourhood measures on a Dask cluster).
 coranking_curve(X, Y, k_max) -> DataFrame
     Q_NX(K) and R_NX(K) for K = 1..k_max.
 check_method(obj) -> list of str

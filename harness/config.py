@@ -25,6 +25,8 @@ def foldbench_version() -> str:
 #: Names of the execution backends, known to the layers below the runner (suite validation, the CLI);
 #: :func:`harness.run.backends.register_backend` adds the name of every backend it registers.
 BACKEND_NAMES: list[str] = ["local", "dask"]
+#: Where one embedding's measures may be computed (``measures.backend``, ``score(backend=...)``).
+MEASURE_BACKENDS = ("local", "dask")
 
 
 class CellStatus(StrEnum):
@@ -71,6 +73,13 @@ class Scoring:
     seed : int
         Seed of every sample drawn while scoring (the same for all methods, so
         differences between methods are not sampling noise).
+    backend : {"local", "dask"}
+        Where a cell's neighbourhood measures are computed: in the cell's own
+        process, or spread over the workers of the run's Dask cluster (the
+        same values; see ``harness.metrics._cluster``).
+    scheduler : str or None
+        Address of that cluster's scheduler, filled in where the cell runs
+        (never from the suite).
     """
 
     ks: tuple[int, ...] = (10,)
@@ -83,6 +92,11 @@ class Scoring:
     queries: int = 2000
     memory_bytes: int | None = None
     seed: int = 0
+    backend: str = "local"
+    scheduler: str | None = None
+
+    #: Fields that say where the measures are computed, not what they are (not part of a score's identity).
+    PLACEMENT = ("backend", "scheduler")
 
     def engine_options(self) -> dict[str, Any]:
         """The keyword arguments of :func:`harness.metrics.score` these settings fix (besides ``ks``)."""

@@ -14,7 +14,8 @@ offset or magnitude of the input; ties in distance are broken by point index.
 from __future__ import annotations
 
 import logging
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -23,6 +24,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ._catalogue import MEASURES, MeasureInfo, higher_is_better, measure_stem
+from ._cluster import ClusterMeasures, check_backend, connect
 from ._distances import DistanceRows
 from ._global import JACKKNIFE_GROUPS, global_measures
 from ._heldout import PREFIX as HELDOUT_PREFIX
@@ -34,7 +36,7 @@ from ._memory import block_rows, default_memory_bytes
 from ._neighbours import knn_overlap, knn_overlap_pairs
 from ._prepared import SETTINGS, DataSide, make_data_side
 from ._ranks import rank_blocks
-from ._rnx_area import rnx_area
+from ._rnx_area import area_terms, rnx_area
 from ._standard import standard_distances, standard_points
 
 __all__ = [
@@ -166,12 +168,32 @@ def _local(
     k_curve: int,
     queries: np.ndarray,
     memory_bytes: int,
+    cluster: ClusterMeasures | None = None,
 ):
     n = data.n
     fixed = data.nbytes + emb.nbytes + len(queries) * (len(PER_K) * len(ks) + 1) * 8
     rows = block_rows(n, len(queries), memory_bytes, fixed)
     k = max(max(ks, default=1), k_curve)
+    if cluster is not None:
+        return cluster.local_terms(queries, k, rows, ks, k_curve)
     return collect(rank_blocks(data, emb, queries, k, rows), n, ks, k_curve)
+
+
+@contextmanager
+def _spread(
+    backend: str, scheduler: str | None, data: DistanceRows, emb: DistanceRows
+) -> Iterator[ClusterMeasures | None]:
+    """The cluster's passes when ``backend="dask"``, else ``None`` (the local engine)."""
+    if backend != "dask":
+        yield None
+        return
+    assert scheduler is not None  # check_backend refused a dask backend without an address
+    with connect(scheduler) as client:
+        cluster = ClusterMeasures(client, data, emb)
+        try:
+            yield cluster
+        finally:
+            cluster.close()
 
 
 def score(
@@ -190,6 +212,8 @@ def score(
     memory_bytes: int | None = None,
     curve_k_max: int | None = None,
     prepared: DataSide | None = None,
+    backend: str = "local",
+    scheduler: str | None = None,
 ) -> MeasureResult:
     """Score an embedding with every applicable measure.
 
@@ -244,6 +268,7 @@ def score(
     ValueError
         A measure is undefined for this input (e.g. all embedding points equal).
     """
+    check_backend(backend, scheduler)
     x_points, x_matrix, y = _inputs(X, Y, metric)
     n = y.shape[0]
     if n < 4:
@@ -277,12 +302,14 @@ def score(
     else:
         queries = np.arange(n)
     rows = _rows(x_points, x_matrix, y)
-    local = _local(*rows, ks, k_curve, queries, memory_bytes)
-
-    values, intervals = local_estimates(local.terms, n, k_curve, sampled)
     area_rng = np.random.default_rng(area_seed)
     area_ranks = None if prepared is None else prepared.area_ranks
-    area, area_sampled = rnx_area(*rows, queries, sampled, n_queries, area_rng, area_ranks)
+    with _spread(backend, scheduler, *rows) as cluster:
+        local = _local(*rows, ks, k_curve, queries, memory_bytes, cluster)
+        terms = area_terms if cluster is None else cluster.area_terms
+        area, area_sampled = rnx_area(*rows, queries, sampled, n_queries, area_rng, area_ranks, terms)
+
+    values, intervals = local_estimates(local.terms, n, k_curve, sampled)
     # The full-range area (K = 1..n-2) gets its interval, when sampled, from the same rule as the others.
     area_value, area_interval = local_estimates({"rnx_auc": area}, n, n - 2, area_sampled)
     values.update(area_value)
@@ -408,7 +435,14 @@ def _points(terms: dict[str, np.ndarray], queries: np.ndarray, ks: Sequence[int]
 
 
 def evaluate(
-    X: object, Y: object, k: int = 10, labels: object = None, metric: str = "euclidean"
+    X: object,
+    Y: object,
+    k: int = 10,
+    labels: object = None,
+    metric: str = "euclidean",
+    *,
+    backend: str = "local",
+    scheduler: str | None = None,
 ) -> dict[str, float]:
     """Score an embedding at one neighbourhood size, with plain keys.
 
@@ -423,6 +457,12 @@ def evaluate(
     labels : array-like of shape (n,), optional
         Classes; adds ``knn_accuracy`` and ``silhouette``.
     metric : {"euclidean", "precomputed"}
+    backend : {"local", "dask"}
+        ``"dask"``: the neighbourhood measures and the R_NX area are computed
+        on the workers of the cluster at ``scheduler``, with the same values
+        (see :func:`score`).
+    scheduler : str, optional
+        Address of a running Dask scheduler, with ``backend="dask"``.
 
     Returns
     -------
@@ -434,7 +474,7 @@ def evaluate(
         with labels.  Global measures are estimated from
         sampled pairs above 5000 points, as in :func:`score`.
     """
-    result = score(X, Y, ks=[k], labels=labels, metric=metric)
+    result = score(X, Y, ks=[k], labels=labels, metric=metric, backend=backend, scheduler=scheduler)
     suffix = f"@{k}"
     plain = {key: key.removesuffix(suffix) for key in result.values}
     return {key if plain[key] in result.values else plain[key]: float(v) for key, v in result.values.items()}

@@ -255,6 +255,11 @@ class RankWalk:
     exact : int, optional
         Columns of the rank tables that hold exact ranks; the others hold
         ``min(rank, K + 1)``.  Default ``K`` (all exact).
+    lanes : int, optional
+        Threads that compute and rank blocks; default: up to :data:`THREADS`
+        within the BLAS limit in force.  One lane never touches the process's
+        BLAS settings (what a task on a Dask worker thread needs: the limit is
+        process-wide, and threads changing it at once leave it wrong).
     """
 
     def __init__(
@@ -265,14 +270,16 @@ class RankWalk:
         k: int,
         block_rows: int,
         exact: int | None = None,
+        lanes: int | None = None,
     ) -> None:
         self.data, self.embedding, self.queries = data, embedding, queries
         self.k, self.block_rows = k, block_rows
         self.exact = k if exact is None else max(0, min(k, exact))
+        self.lanes = lanes
 
     def exact_up_to(self, columns: int) -> RankWalk:
         """The same walk with exact ranks only in the first ``columns`` columns."""
-        return RankWalk(self.data, self.embedding, self.queries, self.k, self.block_rows, columns)
+        return RankWalk(self.data, self.embedding, self.queries, self.k, self.block_rows, columns, self.lanes)
 
     def _sub_block(self, dx: np.ndarray, dy: np.ndarray, part: np.ndarray, scratch: _Scratch) -> RankBlock:
         b = len(part)
@@ -292,7 +299,12 @@ class RankWalk:
         starts = list(range(0, len(self.queries), step))
         rows_max = min(step, len(self.queries))
         # (threadpool_info scans the loaded libraries: only asked when there is a choice)
-        lanes = 1 if len(starts) < 2 or THREADS < 2 else max(1, min(THREADS, len(starts), _thread_budget()))
+        if self.lanes is not None:
+            lanes = max(1, min(self.lanes, len(starts)))
+        elif len(starts) < 2 or THREADS < 2:
+            lanes = 1
+        else:
+            lanes = max(1, min(THREADS, len(starts), _thread_budget()))
         workers = [_Lane(self, rows_max) for _ in range(lanes)]
         if lanes == 1:
             for start in starts:

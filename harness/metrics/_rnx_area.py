@@ -18,9 +18,14 @@ broken exactly as there (by index) and the query comes first.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from ._distances import DistanceRows
+
+#: A function with the signature and results of :func:`area_terms`.
+AreaTerms = Callable[[DistanceRows, DistanceRows, np.ndarray, "np.ndarray | None"], np.ndarray]
 
 #: Full rank rows (query points times n) computed exactly; above, query points are sampled.
 FULL_RANK_ELEMENTS = 2**25
@@ -28,6 +33,11 @@ FULL_RANK_ELEMENTS = 2**25
 MIN_QUERIES = 100
 #: Distances per block of query rows (bounds the temporary arrays, about 50 bytes each).
 _BLOCK_ELEMENTS = 2**21
+
+
+def area_step(n: int) -> int:
+    """Query rows per block of :func:`area_terms` (a slice of whole blocks gives the same numbers)."""
+    return max(1, _BLOCK_ELEMENTS // n)
 
 
 def exact_affordable(n: int) -> bool:
@@ -96,7 +106,7 @@ def area_terms(
     suffix = np.zeros(n)
     suffix[1 : n - 1] = np.cumsum(c[::-1])[::-1]
     out = np.empty(len(queries))
-    step = max(1, _BLOCK_ELEMENTS // n)
+    step = area_step(n)
     for start in range(0, len(queries), step):
         rows = np.asarray(queries[start : start + step], dtype=np.intp)
         known = _ranks(data.block(rows), rows) if data_ranks is None else data_ranks[rows]
@@ -114,6 +124,7 @@ def rnx_area(
     n_queries: int,
     rng: np.random.Generator,
     data_ranks: np.ndarray | None = None,
+    terms: AreaTerms = area_terms,
 ) -> tuple[np.ndarray, bool]:
     """Per-point terms of the full-range area: every point when affordable, else a sample.
 
@@ -131,6 +142,9 @@ def rnx_area(
         Draws the sample when one is needed.
     data_ranks : ndarray, optional
         :func:`data_rank_rows` of ``data`` (used for the exact area).
+    terms : callable, optional
+        What computes the per-point terms: :func:`area_terms` (default) or a
+        function with its signature and results (the cluster's, :mod:`._cluster`).
 
     Returns
     -------
@@ -141,9 +155,9 @@ def rnx_area(
     """
     n = data.n
     if not sampled and exact_affordable(n):
-        return area_terms(data, embedding, np.arange(n), data_ranks), False
+        return terms(data, embedding, np.arange(n), data_ranks), False
     pool = queries if sampled else np.arange(n)
     m = sample_size(n, n_queries)
     if len(pool) > m:
         pool = np.sort(rng.choice(pool, m, replace=False))
-    return area_terms(data, embedding, pool), True
+    return terms(data, embedding, pool, None), True

@@ -115,7 +115,9 @@ def _method_package(use: str) -> str | None:
 
 def scoring_digest(scoring: Scoring) -> str:
     """Hash of the scoring settings and the measuring code's version (a cached score's name)."""
-    doc = {"scoring": asdict(scoring), "libraries": _library_versions()}
+    # Where the measures ran does not change them (harness.metrics._cluster), so it is no part of the name.
+    settings = {k: v for k, v in asdict(scoring).items() if k not in Scoring.PLACEMENT}
+    doc = {"scoring": settings, "libraries": _library_versions()}
     return hashlib.sha256(json.dumps(doc, sort_keys=True, default=str).encode()).hexdigest()[:16]
 
 

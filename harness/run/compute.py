@@ -192,6 +192,8 @@ def score_cell(
             labels=dataset.labels,
             latent=dataset.latent,
             prepared=prepared,
+            backend=scoring.backend,
+            scheduler=scoring.scheduler,
             **scoring.engine_options(),
         )
     except Exception as exc:  # report, never crash the run over one cell's score

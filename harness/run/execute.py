@@ -146,6 +146,12 @@ def execute_suite(
     t_start = time.perf_counter()
     suite = _with_overrides(load_suite(suite) if not isinstance(suite, Suite) else suite, quadratic_limit)
     execution, backend_name = _execution(suite, jobs, time_limit, backend, scheduler, isolate)
+    if suite.scoring.backend == "dask" and backend_name != "dask":
+        raise InputError(
+            "measures.backend",
+            "dask expected together with run.backend: dask (or --backend dask): "
+            f"the measures use the run's cluster, and this run's backend is {backend_name}",
+        )
     cache = (
         EmbeddingCache(Path(cache)) if cache is not None and not isinstance(cache, EmbeddingCache) else cache
     )

@@ -7,7 +7,16 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-from ..config import BACKEND_NAMES, MAX_CELLS, MAX_GRID_POINTS, MAX_SEED, MAX_SEEDS, RunSettings, Scoring
+from ..config import (
+    BACKEND_NAMES,
+    MAX_CELLS,
+    MAX_GRID_POINTS,
+    MAX_SEED,
+    MAX_SEEDS,
+    MEASURE_BACKENDS,
+    RunSettings,
+    Scoring,
+)
 from ..datasets import get_dataset_spec
 from ..errors import InputError, suggest
 from ..methods import OUT_OF_SAMPLE_MAPS, MethodSpec, get_method_spec
@@ -19,7 +28,17 @@ from .model import DatasetEntry, MethodEntry
 _PATH_PARAMS = ("path", "labels_path")
 _DATASET_KEYS = ("use", "name", "params", "holdout")
 _METHOD_KEYS = ("use", "name", "params", "grid", "out_of_sample")
-_SCORING_KEYS = ("k", "rank_by", "pair_sample_above", "pairs", "estimate_above", "queries", "memory", "seed")
+_SCORING_KEYS = (
+    "k",
+    "rank_by",
+    "pair_sample_above",
+    "pairs",
+    "estimate_above",
+    "queries",
+    "memory",
+    "seed",
+    "backend",
+)
 _RUN_KEYS = ("jobs", "time_limit", "quadratic_limit", "backend", "scheduler")
 
 
@@ -218,6 +237,13 @@ def scoring(raw: Any, where: str) -> Scoring:
     no_unknown(raw, _SCORING_KEYS, where)
     ks = _ks(raw.get("k", [10]), f"{where}.k")
     est = raw.get("estimate_above")
+    backend = raw.get("backend", "local")
+    if backend not in MEASURE_BACKENDS:
+        raise InputError(
+            f"{where}.backend",
+            f"expected one of {', '.join(MEASURE_BACKENDS)}, got {show(backend)}"
+            f"{suggest(str(backend), MEASURE_BACKENDS)}",
+        )
     return Scoring(
         ks=ks,
         rank_by=_rank_by(raw.get("rank_by"), ks, f"{where}.rank_by"),
@@ -227,6 +253,7 @@ def scoring(raw: Any, where: str) -> Scoring:
         queries=integer(raw.get("queries", 2000), f"{where}.queries", low=10),
         memory_bytes=None if raw.get("memory") is None else parse_size(raw["memory"], f"{where}.memory"),
         seed=integer(raw.get("seed", 0), f"{where}.seed", low=0),
+        backend=backend,
     )
 
 

@@ -34,6 +34,7 @@ import uuid
 from collections.abc import Iterator
 from concurrent.futures import CancelledError
 from contextlib import contextmanager
+from dataclasses import replace
 from types import ModuleType
 from typing import Any
 
@@ -359,7 +360,17 @@ def _task(
     elsewhere those folders do not exist and change nothing.  What the cell
     prints from its own thread (Python level; C code writing to the file
     descriptors is not caught here) comes back capped at 1 MB.
+
+    With ``measures: {backend: dask}`` the cell's neighbourhood measures are
+    tasks on this same cluster: the cell is given the scheduler's address and
+    its task leaves the worker's thread pool while it waits (``secede``), so
+    that those tasks find a free thread even when every thread holds a cell.
     """
+    spread = scoring.backend == "dask"
+    if spread:
+        import distributed
+
+        scoring = replace(scoring, scheduler=distributed.get_worker().scheduler.address)
     box: dict[str, Any] = {}
     sink = CappedText()
     out, err = _streams()
@@ -384,7 +395,13 @@ def _task(
     root.addHandler(tally)
     try:
         worker.start()
-        worker.join(time_limit)
+        if spread:
+            distributed.secede()
+        try:
+            worker.join(time_limit)
+        finally:
+            if spread:
+                distributed.rejoin()
     finally:
         root.removeHandler(tally)
     if worker.is_alive():

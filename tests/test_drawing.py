@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import threading
 from pathlib import Path
 
 import pytest
@@ -23,7 +24,9 @@ def _writer(path: Path, text: str):
 
 @pytest.fixture
 def two_cores(monkeypatch: pytest.MonkeyPatch) -> None:
+    # other tests of the session may leave threads behind; these drawers touch no shared lock
     monkeypatch.setattr(_drawing, "_cores", lambda: 2)
+    monkeypatch.setattr(_drawing.threading, "active_count", lambda: 1)
 
 
 def test_the_child_draws_its_share_and_the_parent_the_rest(tmp_path: Path, two_cores: None) -> None:
@@ -71,3 +74,15 @@ def test_with_one_core_or_other_threads_everything_is_drawn_here(
     drawers = {"a": _writer(tmp_path / "a.txt", "a"), "b": _writer(tmp_path / "b.txt", "b")}
     drawn = draw_figures(drawers, ("b",))
     assert (tmp_path / "b.txt").read_text() == f"b by {os.getpid()}" and len(drawn) == 2
+
+
+def test_no_fork_while_another_thread_is_alive(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(_drawing, "_cores", lambda: 2)
+    release = threading.Event()
+    other = threading.Thread(target=release.wait)
+    other.start()
+    try:
+        assert not _drawing.can_fork()
+    finally:
+        release.set()
+        other.join()

@@ -488,10 +488,10 @@ def test_disk_full_is_one_line_and_keeps_stored_cells(tmp_path, monkeypatch, cap
     (tmp_path / "suite.yaml").write_text(OK_SUITE)
     real = atomic.write_bytes
 
-    def write_bytes(path, data):
+    def write_bytes(path, data, **kwargs):
         if Path(path).suffix == ".csv" and Path(path).parent.name not in ("curves", "points"):
             raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-        return real(path, data)
+        return real(path, data, **kwargs)
 
     monkeypatch.setattr(atomic, "write_bytes", write_bytes)
     code, lines, err = _run(

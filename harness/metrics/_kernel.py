@@ -1,0 +1,328 @@
+"""Compiled per-row pass of the neighbourhood engine (numba, compiled once and cached on disk).
+
+After the two matrix products of a sub-block, every remaining step works on
+one distance row at a time: find the exactly ordered head of the row (the
+query and its nearest points), look up where the other space's neighbours sit
+in it, and count the exact rank of those that are not in the head.  Done in
+one compiled loop per row, these steps read each row from the cache a few
+times instead of writing and re-reading a temporary array per step.
+
+The rank rule is the engine's (see :mod:`._ranks`): ``1 +`` the number of
+points ``l != i`` before ``j`` in the order *(distance to i, index)*.  All
+comparisons are on the float64 distances themselves, so ranks are exact.
+
+Head of a row
+    The query's distance is set to ``-inf``.  Columns are grouped ``g`` at a
+    time (strided) and the ``(K+1)``-th smallest group minimum ``t`` is
+    selected; every point at or below ``t`` is a candidate (at least ``K+1``
+    of them, one per group), and every other point comes after all of them.
+    The candidates, gathered in index order, are sorted stably by distance,
+    which is the *(distance, index)* order.
+
+Counting a rank
+    For a point ``j`` outside the head, its rank is
+    ``#{l < j: d_l <= v} + #{l >= j: d_l < v}`` with ``v = d_j`` (the query's
+    ``-inf`` stands in for the ``1 +``).  ``d <= v`` is ``d < nextafter(v, inf)``,
+    so the row is cut at the sorted columns of four values at a time and every
+    piece is one branch-free loop of four ``<`` counts.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+#: Candidates up to this many are ordered by counting (c * c compares); longer lists are sorted.
+_COUNT_SORT_MAX = 256
+#: Values whose ranks are counted in one sweep over a row.
+_SWEEP = 4
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _before(da: float, ia: int, db: float, ib: int) -> bool:
+    return da < db or (da == db and ia < ib)
+
+
+@numba.njit(cache=True, nogil=True)
+def _count_below(part: np.ndarray, v: float) -> int:
+    """``#(part < v)``; ``part`` is a slice from its own start, so the loop compiles to vector compares."""
+    total = 0
+    for s in range(part.shape[0]):
+        total += part[s] < v
+    return total
+
+
+@numba.njit(cache=True, nogil=True)
+def _count_at_most(part: np.ndarray, v: float) -> int:
+    """``#(part <= v)``, as :func:`_count_below`."""
+    total = 0
+    for s in range(part.shape[0]):
+        total += part[s] <= v
+    return total
+
+
+@numba.njit(cache=True, nogil=True)
+def _select(values: np.ndarray, count: int, k: int, buf_a: np.ndarray, buf_b: np.ndarray) -> float:
+    """The ``k``-th smallest (0-based) of ``values[:count]``, which are left as they are.
+
+    Quickselect whose partitions copy the kept side into a buffer without
+    branching on the data (random data mispredicts about every second branch).
+    """
+    src = values
+    dst = buf_a
+    while count > 32:
+        a, b, c = src[0], src[count // 2], src[count - 1]
+        pivot = max(min(a, b), min(max(a, b), c))
+        below = 0
+        equal = 0
+        for s in range(count):
+            below += src[s] < pivot
+            equal += src[s] == pivot
+        w = 0
+        if k < below:
+            for s in range(count):
+                v = src[s]
+                dst[w] = v
+                w += v < pivot
+        elif k < below + equal:
+            return pivot
+        else:
+            for s in range(count):
+                v = src[s]
+                dst[w] = v
+                w += v > pivot
+            k -= below + equal
+        count = w
+        src, dst = dst, (buf_b if dst is buf_a else buf_a)
+    for s in range(count):
+        dst[s] = src[s]
+    for s in range(1, count):
+        v = dst[s]
+        r = s - 1
+        while r >= 0 and dst[r] > v:
+            dst[r + 1] = dst[r]
+            r -= 1
+        dst[r + 1] = v
+    return dst[k]
+
+
+@numba.njit(cache=True, nogil=True)
+def _order_candidates(
+    cand_d: np.ndarray, cand_i: np.ndarray, count: int, out_d: np.ndarray, out_i: np.ndarray
+) -> None:
+    """``out_d``, ``out_i``: the candidates in (distance, index) order."""
+    if count <= _COUNT_SORT_MAX:
+        # A candidate's position is the number of candidates before it.  They
+        # arrive in index order, so those before it in the list count when
+        # d <= d_a, those after it when d < d_a: one branch-free vector compare
+        # per pair, cheaper than a sort of a short list.
+        for a in range(count):
+            da = cand_d[a]
+            pos = _count_at_most(cand_d[:a], da) + _count_below(cand_d[a + 1 : count], da)
+            out_d[pos] = da
+            out_i[pos] = cand_i[a]
+        return
+    order = np.argsort(cand_d[:count], kind="mergesort")  # stable: equal distances stay in index order
+    out_d[:count] = cand_d[:count][order]
+    out_i[:count] = cand_i[:count][order]
+
+
+@numba.njit(cache=True, nogil=True)
+def _head(
+    row: np.ndarray,
+    q: int,
+    k: int,
+    scratch: np.ndarray,
+    cand_i: np.ndarray,
+    out_d: np.ndarray,
+    out_i: np.ndarray,
+) -> int:
+    """Order the head of ``row`` (query ``q``) into ``out_d``, ``out_i``; return its length.
+
+    ``scratch`` holds ``4 n + 1`` float64 values, ``cand_i`` ``2 n + 1`` int64 values.
+    """
+    n = row.shape[0]
+    row[q] = -np.inf
+    g = max(1, min(32, n // (4 * (k + 1))))
+    m = n // g
+    mins = scratch[:n]
+    for c in range(m):
+        mins[c] = row[c]
+    for r in range(1, g):
+        part = row[r * m : (r + 1) * m]  # a slice from 0 keeps the loop vectorised
+        for c in range(m):
+            v = part[c]
+            mins[c] = v if v < mins[c] else mins[c]
+    total = m
+    for c in range(g * m, n):
+        mins[total] = row[c]
+        total += 1
+    t = _select(mins, total, k, scratch[n : 2 * n], scratch[2 * n : 3 * n])
+    # Only groups whose minimum is at most t hold candidates (about K+1 of
+    # the m groups).  Visiting their columns row of groups by row of groups
+    # keeps the candidates in index order; lists are written always and kept
+    # when <= t, so no branch depends on the data.
+    hit = cand_i[n:]  # cand_i has n + m slots (see rank_rows)
+    groups = 0
+    for c in range(m):
+        hit[groups] = c
+        groups += mins[c] <= t
+    cand_d = scratch[3 * n :]
+    count = 0
+    for r in range(g):
+        base = r * m
+        for h in range(groups):
+            col = base + hit[h]
+            v = row[col]
+            cand_d[count] = v
+            cand_i[count] = col
+            count += v <= t
+    for col in range(g * m, n):
+        v = row[col]
+        cand_d[count] = v
+        cand_i[count] = col
+        count += v <= t
+    _order_candidates(cand_d, cand_i, count, out_d, out_i)
+    return count
+
+
+@numba.njit(cache=True, nogil=True)
+def _count_four(part: np.ndarray, v0: float, v1: float, v2: float, v3: float) -> tuple:
+    a0 = a1 = a2 = a3 = 0
+    for col in range(part.shape[0]):
+        x = part[col]
+        a0 += x < v0
+        a1 += x < v1
+        a2 += x < v2
+        a3 += x < v3
+    return a0, a1, a2, a3
+
+
+@numba.njit(cache=True, nogil=True)
+def _count_ranks(row: np.ndarray, cols: np.ndarray, count: int, out: np.ndarray) -> None:
+    """Exact ranks of the points ``cols[:count]`` (sorted by column, none the query) into ``out``."""
+    n = row.shape[0]
+    low = np.empty(_SWEEP)
+    high = np.empty(_SWEEP)
+    bounds = np.empty(_SWEEP + 1, dtype=np.int64)
+    for s0 in range(0, count, _SWEEP):
+        used = min(count - s0, _SWEEP)
+        # Values of this sweep; empty slots compare false everywhere (NaN).
+        for s in range(_SWEEP):
+            if s < used:
+                v = row[cols[s0 + s]]
+                low[s] = v
+                high[s] = np.nextafter(v, np.inf)
+                bounds[s] = cols[s0 + s]
+            else:
+                low[s] = high[s] = np.nan
+                bounds[s] = n
+        bounds[_SWEEP] = n
+        t0 = t1 = t2 = t3 = 0
+        # Before a value's own column it counts d <= v, from there on d < v
+        # (columns are sorted, so the row falls into pieces).
+        start = 0
+        for piece in range(used + 1):
+            stop = bounds[piece]
+            if stop > start:
+                # A slice starting at 0 lets the loop compile to vector compares.
+                a = _count_four(
+                    row[start:stop],
+                    low[0] if piece > 0 else high[0],
+                    low[1] if piece > 1 else high[1],
+                    low[2] if piece > 2 else high[2],
+                    low[3] if piece > 3 else high[3],
+                )
+                t0 += a[0]
+                t1 += a[1]
+                t2 += a[2]
+                t3 += a[3]
+            start = stop
+        for s in range(used):
+            total = t0 if s == 0 else (t1 if s == 1 else (t2 if s == 2 else t3))
+            if low[s] == np.inf:  # nextafter(inf) is inf: d <= inf was not counted as such
+                total = 0
+                for col in range(n):
+                    total += _before(row[col], col, low[s], cols[s0 + s])
+            out[s0 + s] = total
+
+
+@numba.njit(cache=True, nogil=True)
+def _cross(
+    row: np.ndarray,
+    head_i: np.ndarray,
+    head_count: int,
+    other: np.ndarray,
+    k: int,
+    exact: int,
+    where: np.ndarray,
+    need: np.ndarray,
+    slot: np.ndarray,
+    counted: np.ndarray,
+    out: np.ndarray,
+) -> None:
+    """Ranks in ``row``'s space of the points ``other[:k]`` into ``out[:k]`` (see :func:`rank_rows`)."""
+    for s in range(head_count):
+        where[head_i[s]] = s
+    missing = 0
+    for p in range(k):
+        pos = where[other[p]]
+        if pos >= 0:
+            out[p] = pos if p < exact or pos <= k else k + 1
+        elif p < exact:
+            need[missing] = other[p]
+            slot[missing] = p
+            missing += 1
+        else:
+            out[p] = k + 1
+    for s in range(head_count):
+        where[head_i[s]] = -1
+    if missing:
+        order = np.argsort(need[:missing])
+        cols = need[:missing][order]
+        _count_ranks(row, cols, missing, counted)
+        for s in range(missing):
+            out[slot[order[s]]] = counted[s]
+
+
+@numba.njit(cache=True, nogil=True)
+def rank_rows(
+    dx: np.ndarray, dy: np.ndarray, rows: np.ndarray, k: int, exact: int, out_x: np.ndarray, out_y: np.ndarray
+) -> None:
+    """Cross-space rank tables of a sub-block of distance rows.
+
+    Parameters
+    ----------
+    dx, dy : ndarray of float64, shape (b, n)
+        Distance rows of the data and the embedding (C-contiguous rows); the
+        query entries are overwritten with ``-inf``.
+    rows : ndarray of int, shape (b,)
+        Query point of each row.
+    k : int
+        Neighbourhood size ``K``.
+    exact : int
+        Columns of the tables that hold exact ranks; later columns hold ``min(rank, K + 1)``.
+    out_x, out_y : ndarray of int64, shape (b, K)
+        Filled with the data rank of each embedding neighbour and the
+        embedding rank of each data neighbour, neighbours in (distance, index) order.
+    """
+    b, n = dx.shape
+    scratch = np.empty(4 * n + 1)
+    cand = np.empty(2 * n + 1, dtype=np.int64)
+    cand_dx = np.empty(n)
+    cand_ix = np.empty(n, dtype=np.int64)
+    cand_dy = np.empty(n)
+    cand_iy = np.empty(n, dtype=np.int64)
+    where = np.full(n, -1, dtype=np.int64)
+    need = np.empty(k, dtype=np.int64)
+    slot = np.empty(k, dtype=np.int64)
+    counted = np.empty(k, dtype=np.int64)
+    for r in range(b):
+        q = rows[r]
+        row_x = dx[r]
+        row_y = dy[r]
+        cx = _head(row_x, q, k, scratch, cand, cand_dx, cand_ix)
+        cy = _head(row_y, q, k, scratch, cand, cand_dy, cand_iy)
+        # Position 0 of a head is the query; the neighbours follow.
+        _cross(row_x, cand_ix, cx, cand_iy[1 : k + 1], k, exact, where, need, slot, counted, out_x[r])
+        _cross(row_y, cand_iy, cy, cand_ix[1 : k + 1], k, exact, where, need, slot, counted, out_y[r])

@@ -112,15 +112,22 @@ def _order_candidates(
 ) -> None:
     """``out_d``, ``out_i``: the candidates in (distance, index) order."""
     if count <= _COUNT_SORT_MAX:
-        # A candidate's position is the number of candidates before it.  They
-        # arrive in index order, so those before it in the list count when
-        # d <= d_a, those after it when d < d_a: one branch-free vector compare
-        # per pair, cheaper than a sort of a short list.
+        # Position of a candidate = candidates at a smaller distance (one
+        # branch-free vector pass per candidate, cheaper than a sort of a short
+        # list); equal distances share a position and take the following
+        # places in the order they arrived, which is index order.
+        pos = np.zeros(count, dtype=np.int32)
+        for b in range(count):
+            v = cand_d[b]
+            for a in range(count):
+                pos[a] += np.int32(v < cand_d[a])
+        taken = np.zeros(count, dtype=np.int32)
         for a in range(count):
-            da = cand_d[a]
-            pos = _count_at_most(cand_d[:a], da) + _count_below(cand_d[a + 1 : count], da)
-            out_d[pos] = da
-            out_i[pos] = cand_i[a]
+            p = pos[a]
+            place = p + taken[p]
+            taken[p] += 1
+            out_d[place] = cand_d[a]
+            out_i[place] = cand_i[a]
         return
     order = np.argsort(cand_d[:count], kind="mergesort")  # stable: equal distances stay in index order
     out_d[:count] = cand_d[:count][order]
@@ -199,6 +206,16 @@ def _count_four(part: np.ndarray, v0: float, v1: float, v2: float, v3: float) ->
 
 
 @numba.njit(cache=True, nogil=True)
+def _count_two(part: np.ndarray, v0: float, v1: float) -> tuple:
+    a0 = a1 = 0
+    for col in range(part.shape[0]):
+        x = part[col]
+        a0 += x < v0
+        a1 += x < v1
+    return a0, a1
+
+
+@numba.njit(cache=True, nogil=True)
 def _count_ranks(row: np.ndarray, cols: np.ndarray, count: int, out: np.ndarray) -> None:
     """Exact ranks of the points ``cols[:count]`` (sorted by column, none the query) into ``out``."""
     n = row.shape[0]
@@ -224,7 +241,13 @@ def _count_ranks(row: np.ndarray, cols: np.ndarray, count: int, out: np.ndarray)
         start = 0
         for piece in range(used + 1):
             stop = bounds[piece]
-            if stop > start:
+            if stop > start and used <= 2:  # the last one or two values of a row
+                b = _count_two(
+                    row[start:stop], low[0] if piece > 0 else high[0], low[1] if piece > 1 else high[1]
+                )
+                t0 += b[0]
+                t1 += b[1]
+            elif stop > start:
                 # A slice starting at 0 lets the loop compile to vector compares.
                 a = _count_four(
                     row[start:stop],

@@ -41,8 +41,10 @@ Threads
 from __future__ import annotations
 
 import os
+import queue
+from collections import deque
 from collections.abc import Iterator
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -125,13 +127,27 @@ class RankWalk:
         # Each lane computes its own blocks' products with a single-threaded
         # BLAS and ranks them: both cores stay busy, and no idle BLAS thread
         # spins against the ranking passes (which made them ~3x slower).
+        # A block takes whichever lane is free (no lane waits for the other's
+        # block to finish); blocks are yielded in order, at most two per lane ahead.
+        free: queue.SimpleQueue[_Lane] = queue.SimpleQueue()
+        for lane in workers:
+            free.put(lane)
+
+        def run(start: int) -> list[RankBlock]:
+            lane = free.get()
+            try:
+                return lane.rank(start)
+            finally:
+                free.put(lane)
+
         with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(lanes) as pool:
-            for i in range(0, len(starts), lanes):
-                futures = [
-                    pool.submit(lane.rank, start) for lane, start in zip(workers, starts[i : i + lanes])
-                ]
-                for future in futures:
-                    yield from future.result()
+            ahead: deque[Future[list[RankBlock]]] = deque()
+            for start in starts:
+                ahead.append(pool.submit(run, start))
+                if len(ahead) > 2 * lanes:
+                    yield from ahead.popleft().result()
+            while ahead:
+                yield from ahead.popleft().result()
 
 
 def _thread_budget() -> int:

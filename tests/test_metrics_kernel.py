@@ -13,7 +13,7 @@ import pytest
 from naive_ranks import full_sort_ranks, squared_distances
 
 from harness.metrics._distances import DistanceRows
-from harness.metrics._kernel import rank_rows
+from harness.metrics._kernel import full_ranks, rank_rows
 
 
 def _kernel_tables(dx: np.ndarray, dy: np.ndarray, k: int, exact: int) -> tuple[np.ndarray, np.ndarray]:
@@ -109,3 +109,31 @@ def test_identical_points_against_a_coarse_grid_at_k_n_minus_2():
     x = np.zeros((300, 2))
     y = np.round(np.random.default_rng(5).standard_normal((300, 2)), 1)
     _check(_rows(x), _rows(y), 298, 5)
+
+
+@pytest.mark.parametrize(
+    "case", ["gaussian", "coarse grid", "duplicates", "all equal", "within float32 resolution"]
+)
+def test_full_rank_rows_match_full_sort(case):
+    # Whole rank rows of the full-range R_NX area: the radix sort of float32 roundings
+    # with equal roundings put in float64 order must give the lexicographic order.
+    r = np.random.default_rng(16)
+    if case == "within float32 resolution":
+        n = 300
+        close = 2.0 + r.integers(0, 5, (n, n)) * 1e-12
+        base = np.where(r.random((n, n)) < 0.5, close, r.uniform(0, 3, (n, n)))
+        d = np.triu(base, 1)
+        d = d + d.T
+    else:
+        points = {
+            "gaussian": r.standard_normal((400, 4)),
+            "coarse grid": r.integers(0, 3, (400, 3)).astype(float),
+            "duplicates": np.repeat(r.standard_normal((20, 2)), 20, axis=0),
+            "all equal": np.zeros((100, 2)),
+        }[case]
+        d = squared_distances(points)
+    rank, _ = full_sort_ranks(d)
+    rows = np.arange(0, len(d), 3, dtype=np.int64)
+    out = np.empty((len(rows), len(d)), dtype=np.int32)
+    full_ranks(d[rows].copy(), rows, out)
+    np.testing.assert_array_equal(out, rank[rows])

@@ -349,3 +349,106 @@ def rank_rows(
         # Position 0 of a head is the query; the neighbours follow.
         _cross(row_x, cand_ix, cx, cand_iy[1 : k + 1], k, exact, where, need, slot, counted, out_x[r])
         _cross(row_y, cand_iy, cy, cand_ix[1 : k + 1], k, exact, where, need, slot, counted, out_y[r])
+
+
+#: Bits of the float32 key sorted per radix pass (three passes cover 32 bits).
+_RADIX_BITS = 11
+_RADIX = 1 << _RADIX_BITS
+#: Equal float32 keys up to this many are put in float64 order by insertion; longer runs are sorted.
+_RUN_INSERTION_MAX = 32
+
+
+@numba.njit(cache=True, nogil=True)
+def _row_order(row: np.ndarray, low: np.ndarray, keys: np.ndarray, idx: np.ndarray, hist: np.ndarray) -> None:
+    """``idx[:n]``: the columns of ``row`` in (distance, index) order.
+
+    A stable three-pass radix sort of the float32 roundings (monotone, so a
+    smaller key means a smaller distance), then runs of equal keys are put in
+    float64 order, stably, so equal distances stay in index order.
+    ``keys`` and ``idx`` hold ``2 n`` values (two halves swapped per pass),
+    ``hist`` ``3 * _RADIX``.
+    """
+    n = row.shape[0]
+    for col in range(n):
+        low[col] = row[col]  # float32 rounding; beyond its range it becomes inf, still in order
+    bits = low.view(np.uint32)
+    hist[:] = 0
+    for col in range(n):
+        b = np.int64(bits[col])
+        # Order-preserving integer key: negative floats reversed, positive ones above them.
+        key = (0xFFFFFFFF - b) if b >= 0x80000000 else (b + 0x80000000)
+        keys[col] = key
+        idx[col] = col
+        hist[key & (_RADIX - 1)] += 1
+        hist[_RADIX + ((key >> _RADIX_BITS) & (_RADIX - 1))] += 1
+        hist[2 * _RADIX + (key >> (2 * _RADIX_BITS))] += 1
+    for p in range(3):
+        total = 0
+        for d in range(p * _RADIX, (p + 1) * _RADIX):
+            c = hist[d]
+            hist[d] = total
+            total += c
+    src = 0
+    for p in range(3):
+        dst = n - src
+        shift = p * _RADIX_BITS
+        base = p * _RADIX
+        for s in range(n):
+            key = keys[src + s]
+            d = base + ((key >> shift) & (_RADIX - 1))
+            w = dst + hist[d]
+            hist[d] += 1
+            keys[w] = key
+            idx[w] = idx[src + s]
+        src = dst
+    if src:
+        keys[:n] = keys[n:]
+        idx[:n] = idx[n:]
+    start = 0
+    while start < n:
+        stop = start + 1
+        while stop < n and keys[stop] == keys[start]:
+            stop += 1
+        if stop - start > _RUN_INSERTION_MAX:
+            run = idx[start:stop].copy()
+            order = np.argsort(row[run], kind="mergesort")  # stable: index order kept within ties
+            idx[start:stop] = run[order]
+        elif stop - start > 1:
+            for s in range(start + 1, stop):
+                c = idx[s]
+                v = row[c]
+                r = s - 1
+                while r >= start and row[idx[r]] > v:
+                    idx[r + 1] = idx[r]
+                    r -= 1
+                idx[r + 1] = c
+        start = stop
+
+
+@numba.njit(cache=True, nogil=True)
+def full_ranks(dist: np.ndarray, rows: np.ndarray, out: np.ndarray) -> None:
+    """Rank of every point in each row by (distance, index), the query 0.
+
+    Parameters
+    ----------
+    dist : ndarray of float64, shape (b, n)
+        Distance rows; the query entries are overwritten with ``-inf``.
+    rows : ndarray of int, shape (b,)
+        Query point of each row.
+    out : ndarray of int32, shape (b, n)
+        Filled with the ranks: ``out[r, j]`` is the number of points before
+        ``j`` in row ``r``'s order (the query counts), so the query has 0 and
+        its nearest neighbour 1.
+    """
+    b, n = dist.shape
+    low = np.empty(n, dtype=np.float32)
+    keys = np.empty(2 * n, dtype=np.int64)
+    idx = np.empty(2 * n, dtype=np.int64)
+    hist = np.empty(3 * _RADIX, dtype=np.int64)
+    for r in range(b):
+        row = dist[r]
+        row[rows[r]] = -np.inf
+        _row_order(row, low, keys, idx, hist)
+        ranks = out[r]
+        for p in range(n):
+            ranks[idx[p]] = p

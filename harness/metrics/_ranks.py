@@ -117,8 +117,7 @@ class RankWalk:
         step = self.block_rows
         starts = list(range(0, len(self.queries), step))
         rows_max = min(step, len(self.queries))
-        # (threadpool_info scans the loaded libraries: only asked when there is a choice)
-        lanes = 1 if len(starts) < 2 or THREADS < 2 else max(1, min(THREADS, len(starts), _thread_budget()))
+        lanes = lanes_for(len(starts))
         workers = [_Lane(self, rows_max) for _ in range(lanes)]
         if lanes == 1:
             for start in starts:
@@ -148,6 +147,12 @@ class RankWalk:
                     yield from ahead.popleft().result()
             while ahead:
                 yield from ahead.popleft().result()
+
+
+def lanes_for(blocks: int) -> int:
+    """Threads that rank ``blocks`` blocks: up to :data:`THREADS`, within the caller's BLAS limit."""
+    # (threadpool_info scans the loaded libraries: only asked when there is a choice)
+    return 1 if blocks < 2 or THREADS < 2 else max(1, min(THREADS, blocks, _thread_budget()))
 
 
 def _thread_budget() -> int:

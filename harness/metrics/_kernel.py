@@ -365,8 +365,8 @@ def _row_order(row: np.ndarray, low: np.ndarray, keys: np.ndarray, idx: np.ndarr
     A stable three-pass radix sort of the float32 roundings (monotone, so a
     smaller key means a smaller distance), then runs of equal keys are put in
     float64 order, stably, so equal distances stay in index order.
-    ``keys`` and ``idx`` hold ``2 n`` values (two halves swapped per pass),
-    ``hist`` ``3 * _RADIX``.
+    ``keys`` (unsigned, 32 bits or more) and ``idx`` hold ``2 n`` values (two
+    halves swapped per pass), ``hist`` ``3 * _RADIX``.
     """
     n = row.shape[0]
     for col in range(n):
@@ -442,7 +442,7 @@ def full_ranks(dist: np.ndarray, rows: np.ndarray, out: np.ndarray) -> None:
     """
     b, n = dist.shape
     low = np.empty(n, dtype=np.float32)
-    keys = np.empty(2 * n, dtype=np.int64)
+    keys = np.empty(2 * n, dtype=np.uint32)
     idx = np.empty(2 * n, dtype=np.int64)
     hist = np.empty(3 * _RADIX, dtype=np.int64)
     for r in range(b):
@@ -452,3 +452,36 @@ def full_ranks(dist: np.ndarray, rows: np.ndarray, out: np.ndarray) -> None:
         ranks = out[r]
         for p in range(n):
             ranks[idx[p]] = p
+
+
+@numba.njit(cache=True, nogil=True)
+def sort_order(values: np.ndarray) -> np.ndarray:
+    """Indices that sort ``values`` (float64, 1-D) by (value, index), like a stable ``argsort``."""
+    n = values.shape[0]
+    low = np.empty(n, dtype=np.float32)
+    keys = np.empty(2 * n, dtype=np.uint32)
+    idx = np.empty(2 * n, dtype=np.int64)
+    hist = np.empty(3 * _RADIX, dtype=np.int64)
+    _row_order(values, low, keys, idx, hist)
+    return idx[:n].copy()
+
+
+@numba.njit(cache=True, nogil=True)
+def tie_blocks(values: np.ndarray, order: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each item's place in ``order`` (which sorts ``values``), each place's tie block ``[first, last)``."""
+    n = values.shape[0]
+    place = np.empty(n, dtype=np.int64)
+    first = np.empty(n, dtype=np.int64)
+    last = np.empty(n, dtype=np.int64)
+    start = 0
+    while start < n:
+        stop = start + 1
+        v = values[order[start]]
+        while stop < n and values[order[stop]] == v:
+            stop += 1
+        for p in range(start, stop):
+            place[order[p]] = p
+            first[p] = start
+            last[p] = stop
+        start = stop
+    return place, first, last

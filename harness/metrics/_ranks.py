@@ -40,15 +40,18 @@ Threads
 
 from __future__ import annotations
 
+import functools
 import os
 import queue
+import sys
 from collections import deque
 from collections.abc import Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
-from threadpoolctl import threadpool_info, threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from ._distances import DistanceRows
 from ._kernel import rank_rows
@@ -139,7 +142,7 @@ class RankWalk:
             finally:
                 free.put(lane)
 
-        with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(lanes) as pool:
+        with one_blas_thread(), ThreadPoolExecutor(lanes) as pool:
             ahead: deque[Future[list[RankBlock]]] = deque()
             for start in starts:
                 ahead.append(pool.submit(run, start))
@@ -151,13 +154,26 @@ class RankWalk:
 
 def lanes_for(blocks: int) -> int:
     """Threads that rank ``blocks`` blocks: up to :data:`THREADS`, within the caller's BLAS limit."""
-    # (threadpool_info scans the loaded libraries: only asked when there is a choice)
     return 1 if blocks < 2 or THREADS < 2 else max(1, min(THREADS, blocks, _thread_budget()))
+
+
+def one_blas_thread() -> Any:
+    """Context limiting BLAS to one thread (a lane's setting), from :func:`_controller`."""
+    return _controller(len(sys.modules)).limit(limits=1, user_api="blas")
+
+
+@functools.lru_cache(maxsize=1)
+def _controller(modules: int) -> ThreadpoolController:
+    # Scanning the loaded libraries takes ~20 ms once scientific packages are loaded, a
+    # good part of a small evaluation; it is redone when modules were imported since
+    # (``modules``), as a new module may bring its own BLAS.
+    return ThreadpoolController()
 
 
 def _thread_budget() -> int:
     """Threads the caller allows: the BLAS limit in force (the runner sets it per cell)."""
-    blas = [lib["num_threads"] for lib in threadpool_info() if lib.get("user_api") == "blas"]
+    info = _controller(len(sys.modules)).info()
+    blas = [lib["num_threads"] for lib in info if lib.get("user_api") == "blas"]
     return max(blas) if blas else THREADS
 
 

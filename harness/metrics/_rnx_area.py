@@ -24,11 +24,10 @@ from __future__ import annotations
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from ._distances import DistanceRows
 from ._kernel import full_ranks
-from ._ranks import lanes_for
+from ._ranks import lanes_for, one_blas_thread
 
 #: Full rank rows (query points times n) computed exactly; above, query points are sampled.
 FULL_RANK_ELEMENTS = 2**25
@@ -111,7 +110,7 @@ def area_terms(
             block(start)
     else:
         # As in the engine: one single-threaded BLAS per lane, each lane ranks its own blocks.
-        with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(lanes) as pool:
+        with one_blas_thread(), ThreadPoolExecutor(lanes) as pool:
             list(pool.map(block, starts))
     return out
 

@@ -38,9 +38,43 @@ _COUNT_SORT_MAX = 256
 _SWEEP = 4
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True)
 def _before(da: float, ia: int, db: float, ib: int) -> bool:
     return da < db or (da == db and ia < ib)
+
+
+@numba.njit(cache=True, nogil=True)
+def _merge_order(values: np.ndarray, idx: np.ndarray, tmp: np.ndarray) -> None:
+    """Sort ``idx`` in place by ``values[idx]``, stably (equal values keep their order).
+
+    A bottom-up merge sort written out here: numba's own sorts cost seconds of
+    first-call compile time each.  ``tmp`` holds ``len(idx)`` values.
+    """
+    n = idx.shape[0]
+    width = 1
+    while width < n:
+        for lo in range(0, n, 2 * width):
+            mid = min(lo + width, n)
+            hi = min(lo + 2 * width, n)
+            i, j, w = lo, mid, lo
+            while i < mid and j < hi:
+                if values[idx[j]] < values[idx[i]]:
+                    tmp[w] = idx[j]
+                    j += 1
+                else:
+                    tmp[w] = idx[i]
+                    i += 1
+                w += 1
+            while i < mid:
+                tmp[w] = idx[i]
+                i += 1
+                w += 1
+            while j < hi:
+                tmp[w] = idx[j]
+                j += 1
+                w += 1
+        idx[:] = tmp[:n]
+        width *= 2
 
 
 @numba.njit(cache=True, nogil=True)
@@ -129,9 +163,11 @@ def _order_candidates(
             out_d[place] = cand_d[a]
             out_i[place] = cand_i[a]
         return
-    order = np.argsort(cand_d[:count], kind="mergesort")  # stable: equal distances stay in index order
-    out_d[:count] = cand_d[:count][order]
-    out_i[:count] = cand_i[:count][order]
+    order = np.arange(count)
+    _merge_order(cand_d, order, np.empty(count, dtype=np.int64))  # stable: ties stay in index order
+    for s in range(count):
+        out_d[s] = cand_d[order[s]]
+        out_i[s] = cand_i[order[s]]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -301,7 +337,8 @@ def _cross(
     for s in range(head_count):
         where[head_i[s]] = -1
     if missing:
-        order = np.argsort(need[:missing])
+        order = np.arange(missing)
+        _merge_order(need[:missing].astype(np.float64), order, np.empty(missing, dtype=np.int64))
         cols = need[:missing][order]
         _count_ranks(row, cols, missing, counted)
         for s in range(missing):
@@ -410,9 +447,7 @@ def _row_order(row: np.ndarray, low: np.ndarray, keys: np.ndarray, idx: np.ndarr
         while stop < n and keys[stop] == keys[start]:
             stop += 1
         if stop - start > _RUN_INSERTION_MAX:
-            run = idx[start:stop].copy()
-            order = np.argsort(row[run], kind="mergesort")  # stable: index order kept within ties
-            idx[start:stop] = run[order]
+            _merge_order(row, idx[start:stop], np.empty(stop - start, dtype=np.int64))  # stable
         elif stop - start > 1:
             for s in range(start + 1, stop):
                 c = idx[s]

@@ -23,7 +23,6 @@ from scipy import stats
 from scipy.spatial.distance import pdist
 
 from ._distances import pair_distances
-from ._kernel import sort_order, tie_blocks
 
 log = logging.getLogger(__name__)
 
@@ -177,6 +176,8 @@ def _sorted_ranks(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np
     The order inside a block of ties is arbitrary: everything read from it counts whole blocks
     (the compiled radix sort gives index order there, several times faster than ``numpy.argsort``).
     """
+    from ._kernel import sort_order, tie_blocks  # numba loads on first use, not with the package
+
     values = np.ascontiguousarray(a, dtype=np.float64)
     order = sort_order(values)
     place, first, last = tie_blocks(values, order)

@@ -1,30 +1,41 @@
-"""Compiled per-row pass of the neighbourhood engine (numba, compiled once and cached on disk).
+"""Compiled passes of the measures (numba: compiled on first use, cached on disk, no threads of its own).
 
-After the two matrix products of a sub-block, every remaining step works on
-one distance row at a time: find the exactly ordered head of the row (the
-query and its nearest points), look up where the other space's neighbours sit
-in it, and count the exact rank of those that are not in the head.  Done in
-one compiled loop per row, these steps read each row from the cache a few
-times instead of writing and re-reading a temporary array per step.
+The neighbourhood engine's per-row pass (:func:`rank_rows`)
+    After the two matrix products of a block, every remaining step works on
+    one distance row at a time: find the exactly ordered head of the row (the
+    query and its nearest points), look up where the other space's neighbours
+    sit in it, and count the exact rank of those that are not in the head.
+    Done in one compiled loop per row, each row is read a few times from the
+    cache instead of being written and re-read as temporary arrays per step.
+    The engine's threads (:mod:`._ranks`) call it with the GIL released.
 
-The rank rule is the engine's (see :mod:`._ranks`): ``1 +`` the number of
-points ``l != i`` before ``j`` in the order *(distance to i, index)*.  All
-comparisons are on the float64 distances themselves, so ranks are exact.
+The rank rule is the engine's: ``1 +`` the number of points ``l != i`` before
+``j`` in the order *(distance to i, index)*.  All comparisons are on the
+float64 distances themselves, so ranks are exact.
 
 Head of a row
     The query's distance is set to ``-inf``.  Columns are grouped ``g`` at a
     time (strided) and the ``(K+1)``-th smallest group minimum ``t`` is
-    selected; every point at or below ``t`` is a candidate (at least ``K+1``
-    of them, one per group), and every other point comes after all of them.
-    The candidates, gathered in index order, are sorted stably by distance,
-    which is the *(distance, index)* order.
+    selected (a quickselect whose partitions do not branch on the data).
+    Every point at or below ``t`` is a candidate (at least ``K+1`` of them,
+    one per group) and every other point comes after all of them.  Only the
+    groups whose minimum is at most ``t`` are visited, in an order that keeps
+    the candidates in index order; a candidate's place is the number of
+    candidates at a smaller distance, equal distances taking the following
+    places in index order (long lists are merge-sorted instead).
 
 Counting a rank
     For a point ``j`` outside the head, its rank is
     ``#{l < j: d_l <= v} + #{l >= j: d_l < v}`` with ``v = d_j`` (the query's
     ``-inf`` stands in for the ``1 +``).  ``d <= v`` is ``d < nextafter(v, inf)``,
     so the row is cut at the sorted columns of four values at a time and every
-    piece is one branch-free loop of four ``<`` counts.
+    piece is one branch-free loop of four ``<`` counts (two for a row's last
+    one or two values).
+
+Whole rank rows and sorts (:func:`full_ranks`, :func:`sort_order`)
+    A stable three-pass radix sort of the float32 roundings (rounding is
+    monotone), then runs of equal roundings put in float64 order: the
+    (value, index) order, for the full-range R_NX area and the pair measures.
 """
 
 from __future__ import annotations

@@ -54,7 +54,6 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from ._distances import DistanceRows
-from ._kernel import rank_rows
 
 #: Threads that each compute and rank their own blocks (numpy, BLAS and the kernel release the GIL).
 THREADS = max(1, min(2, os.cpu_count() or 1))
@@ -192,6 +191,8 @@ class _Lane:
         rows = np.asarray(walk.queries[start : start + walk.block_rows], dtype=np.intp)
         dx = walk.data.block(rows, out=self.data_buf[: len(rows)])
         dy = walk.embedding.block(rows, out=self.emb_buf[: len(rows)])
+        from ._kernel import rank_rows  # numba loads on first use, not with the package
+
         out_x = np.empty((len(rows), walk.k), dtype=np.int64)
         out_y = np.empty((len(rows), walk.k), dtype=np.int64)
         rank_rows(dx, dy, rows.astype(np.int64), walk.k, walk.exact, out_x, out_y)

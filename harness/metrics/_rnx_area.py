@@ -26,7 +26,6 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 
 from ._distances import DistanceRows
-from ._kernel import full_ranks
 from ._ranks import lanes_for, one_blas_thread
 
 #: Full rank rows (query points times n) computed exactly; above, query points are sampled.
@@ -49,6 +48,8 @@ def sample_size(n: int, n_queries: int) -> int:
 
 def _ranks(dist: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """Rank of every point in each row by (distance, index); the query gets 0."""
+    from ._kernel import full_ranks  # numba loads on first use, not with the package
+
     out = np.empty(dist.shape, dtype=np.int32)
     full_ranks(dist, rows.astype(np.int64), out)
     return out

@@ -346,8 +346,7 @@ def main() -> None:
         "--repeat",
         type=int,
         default=3,
-        help="interleaved repetitions (fastest kept); with --table, of rows up to "
-        f"{REPEAT_MAX_N} points (default 2 there)",
+        help=f"interleaved repetitions (fastest kept); with --table, of rows up to {REPEAT_MAX_N} points",
     )
     parser.add_argument("--child", nargs=4, metavar=("KIND", "N", "D", "M"), help=argparse.SUPPRESS)
     parser.add_argument("--big-child", action="store_true", help=argparse.SUPPRESS)

@@ -360,7 +360,7 @@ def _cross(
 def rank_rows(
     dx: np.ndarray, dy: np.ndarray, rows: np.ndarray, k: int, exact: int, out_x: np.ndarray, out_y: np.ndarray
 ) -> None:
-    """Cross-space rank tables of a sub-block of distance rows.
+    """Cross-space rank tables of a block of distance rows.
 
     Parameters
     ----------

@@ -5,8 +5,8 @@ Block-size formula
     points with one matrix product per space (8 bytes per point and row, two
     spaces: ``ROW_BYTES_PER_POINT = 16``), then ranks them one row at a time.
     Each of ``threads`` threads holds one block at a time, and the compiled
-    row pass ``SCRATCH_BYTES_PER_POINT = 48`` bytes per point (group minima,
-    candidate distances and columns of both spaces, a position table).  With
+    row pass ``SCRATCH_BYTES_PER_POINT = 88`` bytes per point (group minima and
+    select buffers, candidate distances and columns of both spaces, a position table).  With
     ``fixed`` bytes for the copied inputs and result tables,
 
         work = memory_bytes - fixed - threads * SCRATCH_BYTES_PER_POINT * n
@@ -31,7 +31,7 @@ log = logging.getLogger(__name__)
 #: Bytes per (query row, point) of a block's distance rows (two spaces).
 ROW_BYTES_PER_POINT = 16
 #: Bytes per point of one thread's row-pass scratch (see :func:`harness.metrics._kernel.rank_rows`).
-SCRATCH_BYTES_PER_POINT = 48
+SCRATCH_BYTES_PER_POINT = 88
 #: Upper limit on rows per block: the matrix product gains nothing beyond it.
 MAX_BLOCK_ROWS = 512
 #: Rows per block kept even when MAX_BLOCK_BYTES would allow fewer (the

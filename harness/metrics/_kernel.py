@@ -45,6 +45,8 @@ import numpy as np
 
 #: Candidates up to this many are ordered by counting (c * c compares); longer lists are sorted.
 _COUNT_SORT_MAX = 256
+#: Values to count in a row up to this many are put in column order by insertion.
+_INSERTION_MAX = 32
 #: Values whose ranks are counted in one sweep over a row.
 _SWEEP = 4
 
@@ -153,20 +155,30 @@ def _select(values: np.ndarray, count: int, k: int, buf_a: np.ndarray, buf_b: np
 
 @numba.njit(cache=True, nogil=True)
 def _order_candidates(
-    cand_d: np.ndarray, cand_i: np.ndarray, count: int, out_d: np.ndarray, out_i: np.ndarray
+    cand_d: np.ndarray,
+    cand_i: np.ndarray,
+    count: int,
+    out_d: np.ndarray,
+    out_i: np.ndarray,
+    places: np.ndarray,
 ) -> None:
-    """``out_d``, ``out_i``: the candidates in (distance, index) order."""
+    """``out_d``, ``out_i``: the candidates in (distance, index) order.
+
+    ``places`` is int32 scratch of ``2 * _COUNT_SORT_MAX`` values.
+    """
     if count <= _COUNT_SORT_MAX:
         # Position of a candidate = candidates at a smaller distance (one
         # branch-free vector pass per candidate, cheaper than a sort of a short
         # list); equal distances share a position and take the following
         # places in the order they arrived, which is index order.
-        pos = np.zeros(count, dtype=np.int32)
+        pos = places[:count]
+        taken = places[_COUNT_SORT_MAX : _COUNT_SORT_MAX + count]
+        pos[:] = 0
+        taken[:] = 0
         for b in range(count):
             v = cand_d[b]
             for a in range(count):
                 pos[a] += np.int32(v < cand_d[a])
-        taken = np.zeros(count, dtype=np.int32)
         for a in range(count):
             p = pos[a]
             place = p + taken[p]
@@ -190,6 +202,7 @@ def _head(
     cand_i: np.ndarray,
     out_d: np.ndarray,
     out_i: np.ndarray,
+    places: np.ndarray,
 ) -> int:
     """Order the head of ``row`` (query ``q``) into ``out_d``, ``out_i``; return its length.
 
@@ -236,7 +249,7 @@ def _head(
         cand_d[count] = v
         cand_i[count] = col
         count += v <= t
-    _order_candidates(cand_d, cand_i, count, out_d, out_i)
+    _order_candidates(cand_d, cand_i, count, out_d, out_i, places)
     return count
 
 
@@ -263,12 +276,16 @@ def _count_two(part: np.ndarray, v0: float, v1: float) -> tuple:
 
 
 @numba.njit(cache=True, nogil=True)
-def _count_ranks(row: np.ndarray, cols: np.ndarray, count: int, out: np.ndarray) -> None:
-    """Exact ranks of the points ``cols[:count]`` (sorted by column, none the query) into ``out``."""
+def _count_ranks(
+    row: np.ndarray, cols: np.ndarray, count: int, out: np.ndarray, values: np.ndarray, bounds: np.ndarray
+) -> None:
+    """Exact ranks of the points ``cols[:count]`` (sorted by column, none the query) into ``out``.
+
+    ``values`` and ``bounds`` are scratch of ``2 * _SWEEP`` floats and ``_SWEEP + 1`` integers.
+    """
     n = row.shape[0]
-    low = np.empty(_SWEEP)
-    high = np.empty(_SWEEP)
-    bounds = np.empty(_SWEEP + 1, dtype=np.int64)
+    low = values[:_SWEEP]
+    high = values[_SWEEP:]
     for s0 in range(0, count, _SWEEP):
         used = min(count - s0, _SWEEP)
         # Values of this sweep; empty slots compare false everywhere (NaN).
@@ -329,6 +346,8 @@ def _cross(
     need: np.ndarray,
     slot: np.ndarray,
     counted: np.ndarray,
+    values: np.ndarray,
+    bounds: np.ndarray,
     out: np.ndarray,
 ) -> None:
     """Ranks in ``row``'s space of the points ``other[:k]`` into ``out[:k]`` (see :func:`rank_rows`)."""
@@ -347,13 +366,26 @@ def _cross(
             out[p] = k + 1
     for s in range(head_count):
         where[head_i[s]] = -1
-    if missing:
+    if missing == 0:
+        return
+    if missing <= _INSERTION_MAX:
+        for s in range(1, missing):  # few values: insertion sort of (column, slot) by column
+            col, at = need[s], slot[s]
+            r = s - 1
+            while r >= 0 and need[r] > col:
+                need[r + 1] = need[r]
+                slot[r + 1] = slot[r]
+                r -= 1
+            need[r + 1] = col
+            slot[r + 1] = at
+    else:
         order = np.arange(missing)
         _merge_order(need[:missing].astype(np.float64), order, np.empty(missing, dtype=np.int64))
-        cols = need[:missing][order]
-        _count_ranks(row, cols, missing, counted)
-        for s in range(missing):
-            out[slot[order[s]]] = counted[s]
+        need[:missing] = need[:missing][order]
+        slot[:missing] = slot[:missing][order]
+    _count_ranks(row, need, missing, counted, values, bounds)
+    for s in range(missing):
+        out[slot[s]] = counted[s]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -388,15 +420,46 @@ def rank_rows(
     need = np.empty(k, dtype=np.int64)
     slot = np.empty(k, dtype=np.int64)
     counted = np.empty(k, dtype=np.int64)
+    places = np.empty(2 * _COUNT_SORT_MAX, dtype=np.int32)
+    values = np.empty(2 * _SWEEP)
+    bounds = np.empty(_SWEEP + 1, dtype=np.int64)
     for r in range(b):
         q = rows[r]
         row_x = dx[r]
         row_y = dy[r]
-        cx = _head(row_x, q, k, scratch, cand, cand_dx, cand_ix)
-        cy = _head(row_y, q, k, scratch, cand, cand_dy, cand_iy)
+        cx = _head(row_x, q, k, scratch, cand, cand_dx, cand_ix, places)
+        cy = _head(row_y, q, k, scratch, cand, cand_dy, cand_iy, places)
         # Position 0 of a head is the query; the neighbours follow.
-        _cross(row_x, cand_ix, cx, cand_iy[1 : k + 1], k, exact, where, need, slot, counted, out_x[r])
-        _cross(row_y, cand_iy, cy, cand_ix[1 : k + 1], k, exact, where, need, slot, counted, out_y[r])
+        _cross(
+            row_x,
+            cand_ix,
+            cx,
+            cand_iy[1 : k + 1],
+            k,
+            exact,
+            where,
+            need,
+            slot,
+            counted,
+            values,
+            bounds,
+            out_x[r],
+        )
+        _cross(
+            row_y,
+            cand_iy,
+            cy,
+            cand_ix[1 : k + 1],
+            k,
+            exact,
+            where,
+            need,
+            slot,
+            counted,
+            values,
+            bounds,
+            out_y[r],
+        )
 
 
 #: Bits of the float32 key sorted per radix pass (three passes cover 32 bits).

@@ -187,4 +187,4 @@ def _walk_part(
 def _area_part(
     data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, data_ranks: np.ndarray | None
 ) -> np.ndarray:
-    return area_terms(data, embedding, queries, data_ranks)
+    return area_terms(data, embedding, queries, data_ranks, lanes=1)

@@ -173,16 +173,15 @@ def _sammon_leave_out(d: np.ndarray, e: np.ndarray) -> np.ndarray:
 def _sorted_ranks(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Sort order, each item's place in it, and each sorted place's tie block ``[first, last)``.
 
-    The order inside a block of ties is arbitrary: everything read from it counts whole blocks.
+    The order inside a block of ties is arbitrary: everything read from it counts whole blocks
+    (the compiled radix sort gives index order there, several times faster than ``numpy.argsort``).
     """
-    order = np.argsort(a)
-    place = np.empty(len(a), dtype=np.intp)
-    place[order] = np.arange(len(a))
-    sorted_a = a[order]
-    new_block = np.concatenate([[True], sorted_a[1:] != sorted_a[:-1]])
-    starts = np.flatnonzero(new_block)
-    block = np.cumsum(new_block) - 1
-    return order, place, starts[block], np.append(starts[1:], len(a))[block]
+    from ._kernel import sort_order, tie_blocks  # numba loads on first use, not with the package
+
+    values = np.ascontiguousarray(a, dtype=np.float64)
+    order = sort_order(values)
+    place, first, last = tie_blocks(values, order)
+    return order, place, first, last
 
 
 def _ranks_without(ranked: tuple[np.ndarray, ...], low: int, high: int) -> np.ndarray:

@@ -3,14 +3,13 @@
 Block-size formula
     The neighbourhood engine computes the distance rows of a block of query
     points with one matrix product per space (8 bytes per point and row, two
-    spaces: ``ROW_BYTES_PER_POINT = 16``), then ranks them on sub-blocks of
-    about ``SUB_ELEMENTS`` distances.  Each of ``threads`` threads holds one
-    block at a time.  A sub-block holds ``SUB_BYTES_PER_POINT = 12`` bytes per point and row (the
-    float32 copies of both spaces and an int32 position table) plus compare
-    masks of at most ``MASK_BYTES``.  With ``fixed`` bytes for the copied inputs
-    and result tables,
+    spaces: ``ROW_BYTES_PER_POINT = 16``), then ranks them one row at a time.
+    Each of ``threads`` threads holds one block at a time, and the compiled
+    row pass ``SCRATCH_BYTES_PER_POINT = 88`` bytes per point (group minima and
+    select buffers, candidate distances and columns of both spaces, a position table).  With
+    ``fixed`` bytes for the copied inputs and result tables,
 
-        work = memory_bytes - fixed - threads * (SUB_BYTES_PER_POINT * sub_rows * n + MASK_BYTES)
+        work = memory_bytes - fixed - threads * SCRATCH_BYTES_PER_POINT * n
         block_rows = clamp(min(work, MAX_BLOCK_BYTES) // (threads * ROW_BYTES_PER_POINT * n),
                            1, MAX_BLOCK_ROWS)
 
@@ -25,14 +24,14 @@ from __future__ import annotations
 import logging
 import os
 
-from ._ranks import MASK_BYTES, THREADS, sub_rows_for
+from ._ranks import THREADS
 
 log = logging.getLogger(__name__)
 
 #: Bytes per (query row, point) of a block's distance rows (two spaces).
 ROW_BYTES_PER_POINT = 16
-#: Bytes per (query row, point) of a sub-block's scratch (float32 copies, position table).
-SUB_BYTES_PER_POINT = 12
+#: Bytes per point of one thread's row-pass scratch (see :func:`harness.metrics._kernel.rank_rows`).
+SCRATCH_BYTES_PER_POINT = 88
 #: Upper limit on rows per block: the matrix product gains nothing beyond it.
 MAX_BLOCK_ROWS = 512
 #: Rows per block kept even when MAX_BLOCK_BYTES would allow fewer (the
@@ -62,7 +61,7 @@ def default_memory_bytes() -> int:
 
 
 def _scratch_bytes(n: int) -> int:
-    return THREADS * (SUB_BYTES_PER_POINT * sub_rows_for(n) * n + MASK_BYTES)
+    return THREADS * SCRATCH_BYTES_PER_POINT * n
 
 
 def block_rows(n: int, n_queries: int, memory_bytes: int, fixed_bytes: int) -> int:

@@ -13,16 +13,21 @@ point ``j`` is in both K-neighbourhoods exactly when ``max(rank_X(j),
 rank_Y(j)) <= K``, so a histogram of those maxima and a cumulative sum give
 the overlap for K = 1..n-2.  The rows are ordered by (distance, index) from
 the same float64 distance rows the neighbourhood engine reads, so ties are
-broken exactly as there (by index) and the query comes first.
+broken exactly as there (by index) and the query comes first; the order is a
+compiled radix sort of the float32 roundings with equal roundings put in
+float64 order (:func:`._kernel.full_ranks`), about five times faster here than
+``numpy.argsort``, and blocks of rows are shared between two threads as in the engine.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
 from ._distances import DistanceRows
+from ._ranks import lanes_for, one_blas_thread
 
 #: A function with the signature and results of :func:`area_terms`.
 AreaTerms = Callable[[DistanceRows, DistanceRows, np.ndarray, "np.ndarray | None"], np.ndarray]
@@ -52,18 +57,11 @@ def sample_size(n: int, n_queries: int) -> int:
 
 def _ranks(dist: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """Rank of every point in each row by (distance, index); the query gets 0."""
-    b, n = dist.shape
-    dist[np.arange(b), rows] = -np.inf
-    # The default sort is several times faster than a stable one but orders
-    # equal distances arbitrarily; rows that hold a tie are sorted again stably.
-    order = np.argsort(dist, axis=1)
-    ordered = np.take_along_axis(dist, order, axis=1)
-    tied = np.flatnonzero((ordered[:, 1:] == ordered[:, :-1]).any(axis=1))
-    if len(tied):
-        order[tied] = np.argsort(dist[tied], axis=1, kind="stable")
-    ranks = np.empty((b, n), dtype=np.intp)
-    np.put_along_axis(ranks, order, np.broadcast_to(np.arange(n), (b, n)), axis=1)
-    return ranks
+    from ._kernel import full_ranks  # numba loads on first use, not with the package
+
+    out = np.empty(dist.shape, dtype=np.int32)
+    full_ranks(dist, rows.astype(np.int64), out)
+    return out
 
 
 def data_rank_rows(data: DistanceRows) -> np.ndarray:
@@ -78,7 +76,11 @@ def data_rank_rows(data: DistanceRows) -> np.ndarray:
 
 
 def area_terms(
-    data: DistanceRows, embedding: DistanceRows, queries: np.ndarray, data_ranks: np.ndarray | None = None
+    data: DistanceRows,
+    embedding: DistanceRows,
+    queries: np.ndarray,
+    data_ranks: np.ndarray | None = None,
+    lanes: int | None = None,
 ) -> np.ndarray:
     """Per-point area under R_NX(K), K = 1..n-2, weights 1/K.
 
@@ -90,6 +92,9 @@ def area_terms(
         Query points.
     data_ranks : ndarray of shape (n, n), optional
         :func:`data_rank_rows` of ``data``, made once for every embedding of it.
+    lanes : int, optional
+        Threads that rank blocks (default: as the engine chooses); 1 where the caller's
+        threads are the parallelism (a Dask worker), since a lane limits BLAS process-wide.
 
     Returns
     -------
@@ -107,12 +112,23 @@ def area_terms(
     suffix[1 : n - 1] = np.cumsum(c[::-1])[::-1]
     out = np.empty(len(queries))
     step = area_step(n)
-    for start in range(0, len(queries), step):
+
+    def block(start: int) -> None:
         rows = np.asarray(queries[start : start + step], dtype=np.intp)
-        known = _ranks(data.block(rows), rows) if data_ranks is None else data_ranks[rows]
+        known = _ranks(data.block(rows), rows) if data_ranks is None else np.asarray(data_ranks[rows])
         both = np.maximum(known, _ranks(embedding.block(rows), rows))
         # The query (rank 0 in both) is not its own neighbour: take out its suffix(0) = 0.
         out[start : start + len(rows)] = suffix[both].sum(axis=1) + c0
+
+    starts = range(0, len(queries), step)
+    lanes = lanes_for(len(starts)) if lanes is None else max(1, min(lanes, len(starts)))
+    if lanes == 1:
+        for start in starts:
+            block(start)
+    else:
+        # As in the engine: one single-threaded BLAS per lane, each lane ranks its own blocks.
+        with one_blas_thread(), ThreadPoolExecutor(lanes) as pool:
+            list(pool.map(block, starts))
     return out
 
 

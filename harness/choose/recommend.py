@@ -153,11 +153,7 @@ def recommendation_text(rec: Recommendation) -> str:
         lines += ["Finalists (seed means, 95% t interval):", "", markdown_table(rows, header), ""]
         top = rec.final[:2]
         if len(top) == 2 and top[0]["mean_rank"] == top[1]["mean_rank"]:
-            lines += [
-                f"The first two tie on mean rank; the tie goes to the cheaper fit "
-                f"({_num(top[0].get('fit_seconds'))} s against {_num(top[1].get('fit_seconds'))} s a cell).",
-                "",
-            ]
+            lines += [_tie_sentence(rec, top[0], top[1]), ""]
     lines += _separation_lines(rec)
     lines += ["## Rungs", ""]
     for r in rec.rungs:
@@ -243,3 +239,22 @@ def write_text_file(path: Path, text: str) -> None:
     from ..run.atomic import write_text
 
     write_text(path, text)
+
+
+def _tie_sentence(rec: Recommendation, first: dict[str, Any], second: dict[str, Any]) -> str:
+    """Why the first of two finalists with equal mean ranks is first (the rule of ``standings``)."""
+    before: dict[str, tuple[int, int]] = {}
+    for r in rec.rungs[:-1]:
+        for row in r.ranking:
+            before[row["name"]] = (int(row["place"]), r.size)
+    a, b = before.get(first["name"]), before.get(second["name"])
+    if a is not None and b is not None and a[0] != b[0]:
+        return (
+            "The first two tie on mean rank; the tie goes to the one placed higher where they were "
+            f"last judged among more candidates (place {a[0]} against {b[0]}"
+            + (f", on {a[1]} rows)." if a[1] == b[1] else f", on {a[1]} and {b[1]} rows).")
+        )
+    return (
+        f"The first two tie on mean rank; the tie goes to the cheaper fit "
+        f"({_num(first.get('fit_seconds'))} s against {_num(second.get('fit_seconds'))} s a cell)."
+    )

@@ -122,3 +122,14 @@ class SlowsWithSize(_Base):
     def fit_transform(self, X):
         time.sleep((len(X) / self.scale) ** 2)
         return self._first_columns(X)
+
+
+class ReportsThreads(_Base):
+    """Prints the BLAS thread limits it runs under (threadpoolctl), then returns two columns."""
+
+    def fit_transform(self, X):
+        from threadpoolctl import threadpool_info
+
+        limits = sorted({lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"})
+        print(f"blas threads {limits}")
+        return self._first_columns(X)

@@ -445,3 +445,16 @@ def test_dask_crash_blames_only_the_cell_that_kills_its_workers(tmp_path):
     assert len(chatty) == 2
     for key in chatty:  # printed on the worker, written here
         assert "chatty line 2\n" in (logs / f"{key}.log").read_text()
+
+
+def test_a_cell_runs_under_its_share_of_the_blas_threads(tmp_path):
+    # plumbing of our own: two jobs (two cells) on a machine of c cores give each cell
+    # max(1, c // 2) BLAS threads; one cell alone gets them all (the library list is found once
+    # in the fork server; threadpoolctl reads the limit back inside the cell)
+    methods = "  - use: runner_plugins:ReportsThreads\n    name: threads\n"
+    cores = os.cpu_count() or 1
+    for seeds, jobs, share in ((2, 2, max(1, cores // 2)), (1, 2, cores)):
+        suite = suite_file(tmp_path, methods, name=f"t{seeds}", seeds=seeds)
+        outcome = run_suite(suite, tmp_path / f"out{seeds}", jobs=jobs)
+        logs = [p.read_text() for p in (outcome.run_dir / "cells").glob("*.log")]
+        assert len(logs) == seeds and all(f"blas threads [{share}]" in text for text in logs), logs

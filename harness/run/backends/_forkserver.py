@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import logging
 
-from . import local  # noqa: F401  (imported once here, then shared by every forked cell)
+from . import local  # imported once here, then shared by every forked cell
 from ._orphans import die_with_parent
 
 die_with_parent()
@@ -25,6 +25,7 @@ def _warm_up() -> None:
     rng = np.random.default_rng(0)
     x = rng.normal(size=(40, 4))
     score(x, x[:, :2], ks=[5], labels=np.arange(40) % 2, latent=x[:, :1])
+    local.thread_pools()  # the library scan, once here (keyed by the modules loaded by now)
 
 
 try:

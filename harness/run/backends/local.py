@@ -35,7 +35,7 @@ from pathlib import Path
 import numpy as np
 from filelock import FileLock, Timeout
 from joblib import Parallel, delayed
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from ...config import CellStatus, Scoring
 from ...datasets import Dataset
@@ -169,7 +169,7 @@ def _child(
     root = logging.getLogger()
     root.handlers[:] = [tally, shown]
     root.setLevel(logging.WARNING)
-    with threadpool_limits(limits=threads), thread_budget(threads):
+    with thread_pools().limit(limits=threads), thread_budget(threads):
         dataset, side = _unstage(where)
         result = compute_cell(cell, dataset, scoring, known, roots, None if cell.holdout else side)
     result.warnings = tally.lines()
@@ -177,6 +177,20 @@ def _child(
     sys.stderr.flush()
     conn.send(result)
     conn.close()
+
+
+def thread_pools() -> ThreadpoolController:
+    """The loaded BLAS and OpenMP pools, found once for as long as no module is imported.
+
+    Finding them scans every loaded library (about 30 ms with the scientific stack loaded);
+    the fork server finds them while warming up, so a cell process inherits the answer.
+    """
+    return _pools(len(sys.modules))
+
+
+@functools.lru_cache(maxsize=1)
+def _pools(modules: int) -> ThreadpoolController:
+    return ThreadpoolController()
 
 
 @functools.cache

@@ -78,8 +78,7 @@ def _peak_rss_mib() -> float:
 def _child(kind: str, n: int, d: int, m: int) -> dict:
     sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
     from harness import metrics
-    from harness.metrics._distances import DistanceRows
-    from harness.metrics._memory import block_rows, default_memory_bytes
+    from harness.metrics._memory import default_memory_bytes
 
     x, y = _data(n, d)
     start = time.perf_counter()
@@ -96,13 +95,7 @@ def _child(kind: str, n: int, d: int, m: int) -> dict:
     elif kind == "evaluate":
         value = metrics.evaluate(x, y, k=K)["trustworthiness"]
     elif kind == "floor":
-        data, emb = DistanceRows(points=x), DistanceRows(points=y)
-        rows = block_rows(n, n, default_memory_bytes(), data.nbytes + emb.nbytes)
-        buf = np.empty((rows, n))
-        for s in range(0, n, rows):
-            idx = np.arange(s, min(n, s + rows))
-            data.block(idx, out=buf[: len(idx)])
-            emb.block(idx, out=buf[: len(idx)])
+        _products(x, y)
         value = float("nan")
     else:
         raise SystemExit(f"unknown kind {kind}")
@@ -207,6 +200,21 @@ def _floor_lanes(data: object, emb: object, n: int, rows: int) -> None:
         list(pool.map(one, range(lanes)))
 
 
+def _products(x: np.ndarray, y: np.ndarray) -> None:
+    """The floor: both spaces' distance rows by blocks, as the engine computes them, and nothing else."""
+    from harness.metrics._distances import DistanceRows
+    from harness.metrics._memory import block_rows, default_memory_bytes
+
+    n = len(x)
+    data, emb = DistanceRows(points=x), DistanceRows(points=y)
+    rows = block_rows(n, n, default_memory_bytes(), data.nbytes + emb.nbytes)
+    buf = np.empty((rows, n))
+    for s in range(0, n, rows):
+        idx = np.arange(s, min(n, s + rows))
+        data.block(idx, out=buf[: len(idx)])
+        emb.block(idx, out=buf[: len(idx)])
+
+
 def _measures(n: int, d: int) -> dict:
     """Callables of one target row, on that row's data."""
     import harness
@@ -217,13 +225,7 @@ def _measures(n: int, d: int) -> dict:
     x, y = _data(n, d)
 
     def floor() -> None:
-        data, emb = DistanceRows(points=x), DistanceRows(points=y)
-        rows = block_rows(n, n, default_memory_bytes(), data.nbytes + emb.nbytes)
-        buf = np.empty((rows, n))
-        for s in range(0, n, rows):
-            idx = np.arange(s, min(n, s + rows))
-            data.block(idx, out=buf[: len(idx)])
-            emb.block(idx, out=buf[: len(idx)])
+        _products(x, y)
 
     def floor_lanes() -> None:
         data, emb = DistanceRows(points=x), DistanceRows(points=y)

@@ -149,9 +149,14 @@ def invalid_at(params: Mapping[str, Any], n: int) -> str | None:
 GRAPH_RUNG = 300
 
 
+def builds_a_graph(params: Mapping[str, Any]) -> bool:
+    """A neighbour-graph configuration (it has ``n_neighbors``)."""
+    return "n_neighbors" in params
+
+
 def too_sparse_at(params: Mapping[str, Any], n: int) -> bool:
     """A neighbour-graph configuration on fewer than :data:`GRAPH_RUNG` rows: carried, not judged."""
-    return "n_neighbors" in params and n < GRAPH_RUNG
+    return builds_a_graph(params) and n < GRAPH_RUNG
 
 
 def suite_pool(suite: Suite, n_full: int, n_smallest: int) -> Pool:

@@ -37,7 +37,7 @@ from .halving import (
     rung_suite,
     standings,
 )
-from .pool import GRAPH_RUNG, Pool, default_pool, invalid_at, suite_pool, too_sparse_at
+from .pool import GRAPH_RUNG, Pool, builds_a_graph, default_pool, invalid_at, suite_pool, too_sparse_at
 from .recommend import (
     Recommendation,
     RungRecord,
@@ -162,7 +162,7 @@ def choose(
     if not pool.candidates:
         reasons = "; ".join(f"{n}: {r}" for n, r in pool.left_out) or "no methods"
         raise InputError("candidate pool", f"empty after the size guard ({reasons})")
-    graphs = any(too_sparse_at(c.params, 0) for c in pool.candidates)
+    graphs = any(builds_a_graph(c.params) for c in pool.candidates)
     rungs = plan_rungs(
         n_full,
         len(pool.candidates),

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -237,13 +237,7 @@ def scoring(raw: Any, where: str) -> Scoring:
     no_unknown(raw, _SCORING_KEYS, where)
     ks = _ks(raw.get("k", [10]), f"{where}.k")
     est = raw.get("estimate_above")
-    backend = raw.get("backend", "local")
-    if backend not in MEASURE_BACKENDS:
-        raise InputError(
-            f"{where}.backend",
-            f"expected one of {', '.join(MEASURE_BACKENDS)}, got {show(backend)}"
-            f"{suggest(str(backend), MEASURE_BACKENDS)}",
-        )
+    backend = _one_of(raw.get("backend", "local"), MEASURE_BACKENDS, f"{where}.backend")
     return Scoring(
         ks=ks,
         rank_by=_rank_by(raw.get("rank_by"), ks, f"{where}.rank_by"),
@@ -294,13 +288,7 @@ def run_settings(raw: Any, where: str) -> RunSettings:
         return RunSettings()
     raw = mapping(raw, where, "run settings")
     no_unknown(raw, _RUN_KEYS, where)
-    backend = raw.get("backend", "local")
-    if backend not in BACKEND_NAMES:
-        raise InputError(
-            f"{where}.backend",
-            f"expected one of {', '.join(BACKEND_NAMES)}, got {show(backend)}"
-            f"{suggest(str(backend), BACKEND_NAMES)}",
-        )
+    backend = _one_of(raw.get("backend", "local"), BACKEND_NAMES, f"{where}.backend")
     scheduler = raw.get("scheduler")
     if scheduler is not None and (not isinstance(scheduler, str) or not scheduler.strip()):
         raise InputError(
@@ -322,3 +310,12 @@ def run_settings(raw: Any, where: str) -> RunSettings:
         backend=backend,
         scheduler=scheduler,
     )
+
+
+def _one_of(value: Any, allowed: Sequence[str], field: str) -> Any:
+    """``value`` when it is one of ``allowed``, else a one-line InputError naming ``field``."""
+    if value not in allowed:
+        raise InputError(
+            field, f"expected one of {', '.join(allowed)}, got {show(value)}{suggest(str(value), allowed)}"
+        )
+    return value

@@ -86,6 +86,7 @@ class Chatty(_Base):
 
         for i in range(self.lines):
             print(f"chatty line {i}")
+        print(f"chatty seed {self.random_state}")
         sys.stdout.flush()
         os.write(2, b"chatty wrote to file descriptor 2\n")
         for i in range(self.warnings):

@@ -1,19 +1,24 @@
-"""The local backend: each cell in a child process of its own, supervised by a joblib thread pool.
+"""The local backend: cells in worker processes, supervised by a joblib thread pool.
 
-A cell that overruns its time limit is stopped, a child that dies
+Each lane of the pool holds a worker process that runs cells one after another
+(:func:`_reusable` says when a worker may go on: after a built-in method's cell
+that ended well; a plug-in's cell runs in a worker of its own).  A cell that
+overruns its time limit is stopped with its worker, a worker that dies
 (segmentation fault, out-of-memory kill, ``os._exit``) marks only its own cell
-as crashed, and the run goes on.  Children come from a fork server that has
-imported the package once, so a cell starts in milliseconds, and datasets
-reach them as memory-mapped ``.npy`` files staged once per run in a temporary
-folder (removed at the end; one left by a process that was killed is removed
-by the next run).  What a cell prints goes, through a pipe, to its log
+as crashed, and the run goes on with a fresh worker.  Workers come from a fork
+server that has imported the package once, so one starts in milliseconds, and
+datasets reach them as memory-mapped ``.npy`` files staged once per run in a
+temporary folder (removed at the end; one left by a process that was killed is
+removed by the next run).  What a cell prints goes, through a pipe, to its log
 (``execution.log_dir/<key>.log``, at most 1 MB), never to foldbench's own
-output.  Children, their process groups and the fork server end with the
-process that started them (:mod:`._orphans`).
+output; a mark the worker writes after each cell keeps the cells' output apart.
+Workers, their process groups and the fork server end with the process that
+started them (:mod:`._orphans`).
 """
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import logging
 import multiprocessing as mp
@@ -142,41 +147,75 @@ def shared_sides(cells: list[Cell], datasets: dict[str, Dataset], scoring: Scori
     return sides
 
 
-def _child(
-    cell: Cell,
-    where: Path,
-    scoring: Scoring,
-    threads: int,
-    known: KnownFit | None,
-    roots: tuple[str, ...],
-    conn: Connection,
-    alive: Connection,
-    output: Connection | None,
-) -> None:
-    # The parent handles Ctrl-C; a child only stops when told to, or when the parent is gone.
+#: Written by a worker to its output after each cell's, so that each cell's log holds only its own.
+_END_OF_CELL = b"\x00\x1efoldbench: end of cell output\x1e\x00\n"
+#: A worker is retired after this many cells (a bound on anything a method leaves behind).
+_MAX_CELLS = 64
+#: A worker is retired after a cell whose fit's peak memory was above this (MiB): the allocator may
+#: keep it.
+_RETIRE_PEAK_MB = 512.0
+
+
+def _serve(conn: Connection, alive: Connection, output: Connection | None) -> None:
+    """A worker: run the cells sent on ``conn`` one after another until told to stop.
+
+    Each cell's result goes back on ``conn``; after each cell the worker writes
+    :data:`_END_OF_CELL` to its output, so the parent can tell the cells' output apart.
+    """
+    # The parent handles Ctrl-C; a worker only stops when told to, or when the parent is gone.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _orphans.die_with_parent()
     _orphans.lead_own_group()
     _orphans.end_with(alive)
-    if output is not None:  # the cell's stdout and stderr, down to the file descriptors, go to its log
+    if output is not None:  # the cells' stdout and stderr, down to the file descriptors, go to the logs
         os.dup2(output.fileno(), 1)
         os.dup2(output.fileno(), 2)
         output.close()
-    conn.send(_STARTED)
+    staged: dict[Path, tuple[Dataset, DataSide | None]] = {}
+    while True:
+        try:
+            task = conn.recv()
+        except (EOFError, OSError):
+            return
+        if task is None:
+            break
+        cell, where, scoring, threads, known, roots = task
+        conn.send(_STARTED)
+        if where not in staged:
+            staged[where] = _unstage(where)
+        dataset, side = staged[where]
+        result = _one_cell(cell, dataset, side, scoring, threads, known, roots)
+        sys.stdout.flush()
+        sys.stderr.flush()
+        if output is not None:
+            os.write(1, _END_OF_CELL)
+        conn.send(result)
+    conn.close()
+
+
+def _one_cell(
+    cell: Cell,
+    dataset: Dataset,
+    side: DataSide | None,
+    scoring: Scoring,
+    threads: int,
+    known: KnownFit | None,
+    roots: tuple[str, ...],
+) -> CellResult:
+    """One cell inside a worker, with its own warning tally and its share of the threads."""
     tally = WarningTally()
     shown = logging.StreamHandler(sys.stderr)  # every warning in full in the log, a tally in the record
     shown.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
     root = logging.getLogger()
     root.handlers[:] = [tally, shown]
     root.setLevel(logging.WARNING)
-    with thread_pools().limit(limits=threads), thread_budget(threads):
-        dataset, side = _unstage(where)
-        result = compute_cell(cell, dataset, scoring, known, roots, None if cell.holdout else side)
+    try:
+        with thread_pools().limit(limits=threads), thread_budget(threads):
+            result = compute_cell(cell, dataset, scoring, known, roots, None if cell.holdout else side)
+    finally:
+        root.handlers[:] = []
     result.warnings = tally.lines()
-    sys.stdout.flush()
-    sys.stderr.flush()
-    conn.send(result)
-    conn.close()
+    return result
 
 
 def thread_pools() -> ThreadpoolController:
@@ -236,6 +275,144 @@ def _main_module_hidden() -> Iterator[None]:
             sys.modules["__main__"] = main
 
 
+class _Output:
+    """A worker's printed output, cut into its cells at :data:`_END_OF_CELL` (read on a thread)."""
+
+    def __init__(self, source: Connection) -> None:
+        self.source = source
+        self.changed = threading.Condition()
+        self.current = CappedText()
+        self.done: list[bytes] = []  # the output of cells whose end mark has come, oldest first
+        self.tail = b""  # bytes that may be the start of an end mark
+        self.ended = False
+        self.thread = threading.Thread(target=self._copy, name="foldbench-cell-output", daemon=True)
+        self.thread.start()
+
+    def _copy(self) -> None:
+        fd = self.source.fileno()
+        while True:
+            try:
+                chunk = os.read(fd, 1 << 16)
+            except OSError:
+                chunk = b""
+            with self.changed:
+                if not chunk:
+                    self.current.add(self.tail)
+                    self.tail, self.ended = b"", True
+                    self.changed.notify_all()
+                    return
+                self._feed(chunk)
+
+    def _feed(self, chunk: bytes) -> None:
+        data = self.tail + chunk
+        while (at := data.find(_END_OF_CELL)) >= 0:
+            self.current.add(data[:at])
+            self.done.append(self.current.getvalue())
+            self.current = CappedText()
+            data = data[at + len(_END_OF_CELL) :]
+            self.changed.notify_all()
+        keep = len(_END_OF_CELL) - 1
+        self.current.add(data[: max(0, len(data) - keep)])
+        self.tail = data[max(0, len(data) - keep) :]
+
+    def next_cell(self, timeout: float) -> bytes:
+        """The output of the worker's oldest cell not yet taken (what there is, if its mark never comes)."""
+        with self.changed:
+            self.changed.wait_for(lambda: bool(self.done) or self.ended, timeout)
+            if self.done:
+                return self.done.pop(0)
+            value = self.current.getvalue() + self.tail
+            self.current, self.tail = CappedText(), b""
+            return value
+
+    def close(self) -> None:
+        self.thread.join(_OUTPUT_GRACE)
+        if not self.thread.is_alive():
+            self.source.close()
+
+
+class _Worker:
+    """A worker process of the fork server, with the ends of its pipes that this process holds."""
+
+    def __init__(self, with_output: bool) -> None:
+        ctx = _context()
+        self.conn, conn_end = ctx.Pipe(duplex=True)
+        alive_end, self.alive = ctx.Pipe(duplex=False)  # the worker watches alive_end; only we hold alive
+        output_end, output = ctx.Pipe(duplex=False) if with_output else (None, None)
+        self.proc = ctx.Process(target=_serve, args=(conn_end, alive_end, output), daemon=True)
+        with _main_module_hidden():
+            self.proc.start()
+        for end in (conn_end, alive_end, output):
+            if end is not None:
+                end.close()
+        self.output = _Output(output_end) if output_end is not None else None
+        self.cells = 0
+
+    def retire(self, answered: bool) -> None:
+        """End the worker and anything its cells started.
+
+        A worker that answered is first let to end on its own: its exit handlers release
+        named semaphores (numba's).
+        """
+        if answered:
+            with contextlib.suppress(OSError, ValueError):
+                self.conn.send(None)
+            self.proc.join(_EXIT_GRACE)
+        self.conn.close()
+        _orphans.kill_group(self.proc.pid)
+        if self.proc.is_alive():
+            self.proc.kill()
+        self.proc.join(5)
+        self.alive.close()
+        if self.output is not None:
+            self.output.close()
+
+
+class _Workers:
+    """Idle workers of one run, handed to the lanes; every worker is retired at the end."""
+
+    def __init__(self, with_output: bool) -> None:
+        self.with_output = with_output
+        self.idle: list[_Worker] = []
+        self.lock = threading.Lock()
+        self.closed = False
+
+    def take(self) -> _Worker:
+        with self.lock:
+            if self.idle:
+                return self.idle.pop()
+        return _Worker(self.with_output)
+
+    def give_back(self, worker: _Worker) -> None:
+        with self.lock:
+            if not self.closed:
+                self.idle.append(worker)
+                return
+        worker.retire(answered=True)  # a lane that finished after the run closed its workers
+
+    def close(self) -> None:
+        with self.lock:
+            idle, self.idle, self.closed = self.idle, [], True
+        for worker in idle:
+            worker.retire(answered=True)
+
+
+def _reusable(cell: Cell, result: CellResult, worker: _Worker) -> bool:
+    """Whether ``worker`` may run another cell after ``cell`` gave ``result``.
+
+    Only after a built-in method's cell that ended well: a plug-in (``module:Name``) is
+    code we do not know, so its cells run in a worker of their own; so does a cell after a
+    fit that held much memory, and every :data:`_MAX_CELLS` cells a worker starts afresh.
+    """
+    peak = result.fit_peak_mb
+    return (
+        ":" not in cell.use
+        and result.status == CellStatus.OK
+        and worker.cells < _MAX_CELLS
+        and not (peak is not None and peak > _RETIRE_PEAK_MB)
+    )
+
+
 def _supervise(
     cell: Cell,
     where: Path,
@@ -245,43 +422,28 @@ def _supervise(
     known: KnownFit | None,
     stop: threading.Event,
     halt: threading.Event,
+    workers: _Workers,
 ) -> CellResult:
     if stop.is_set() or halt.is_set():
         return CellResult(cell, CellStatus.INTERRUPTED, "not started: the run was interrupted")
-    ctx = _context()
-    receive, send = ctx.Pipe(duplex=False)
-    alive_end, alive = ctx.Pipe(duplex=False)  # the child watches alive_end; only this process holds alive
-    output_end, output = ctx.Pipe(duplex=False) if execution.log_dir else (None, None)
-    proc = ctx.Process(
-        target=_child,
-        args=(cell, where, scoring, threads, known, execution.plugin_roots, send, alive_end, output),
-        daemon=True,
-    )
-    with _main_module_hidden():
-        proc.start()
-    for end in (send, alive_end, output):
-        if end is not None:
-            end.close()
-    sink = CappedText()
-    pump = _pump(output_end, sink) if output_end is not None else None
-    answered = False
+    worker = workers.take()
     try:
-        result, answered = _await(cell, proc, receive, execution.time_limit, stop, halt)
+        worker.conn.send((cell, where, scoring, threads, known, execution.plugin_roots))
+    except OSError:  # an idle worker that has gone (killed from outside): a new one
+        worker.retire(answered=False)
+        worker = _Worker(workers.with_output)
+        worker.conn.send((cell, where, scoring, threads, known, execution.plugin_roots))
+    worker.cells += 1
+    result, answered = _await(cell, worker.proc, worker.conn, execution.time_limit, stop, halt)
+    if answered and _reusable(cell, result, worker):
+        if worker.output is not None:
+            write_log(execution.log_dir, cell.key, worker.output.next_cell(_OUTPUT_GRACE))
+        workers.give_back(worker)
         return result
-    finally:
-        receive.close()
-        if answered:  # let it end on its own: its exit handlers release named semaphores (numba's)
-            proc.join(_EXIT_GRACE)
-        _orphans.kill_group(proc.pid)  # the cell and anything it started
-        if proc.is_alive():
-            proc.kill()
-        proc.join(5)
-        alive.close()
-        if pump is not None and output_end is not None:
-            pump.join(_OUTPUT_GRACE)
-            write_log(execution.log_dir, cell.key, sink.getvalue())
-            if not pump.is_alive():
-                output_end.close()
+    worker.retire(answered)
+    if worker.output is not None:
+        write_log(execution.log_dir, cell.key, worker.output.next_cell(_OUTPUT_GRACE))
+    return result
 
 
 def _await(
@@ -316,25 +478,6 @@ def _await(
                 t0 = time.perf_counter()
                 continue
             return message, True
-
-
-def _pump(source: Connection, sink: CappedText) -> threading.Thread:
-    """Copy what a child writes to ``source`` into ``sink`` until end-of-file, on a thread."""
-
-    def copy() -> None:
-        fd = source.fileno()
-        while True:
-            try:
-                chunk = os.read(fd, 1 << 16)
-            except OSError:
-                return
-            if not chunk:
-                return
-            sink.add(chunk)
-
-    thread = threading.Thread(target=copy, name="foldbench-cell-output", daemon=True)
-    thread.start()
-    return thread
 
 
 def _death(code: int | None) -> str:
@@ -395,12 +538,13 @@ class LocalBackend:
         sweep_staging()
         _start_fork_server()
         halt = threading.Event()  # set when the consumer stops early: running cells end at once
-        with staging_folder() as folder:
+        workers = _Workers(with_output=execution.log_dir is not None)
+        with staging_folder() as folder, contextlib.closing(workers):
             sides = shared_sides(cells, datasets, scoring)
             places = stage_datasets({c.dataset: datasets[c.dataset] for c in cells}, folder, sides)
             tasks = (
                 delayed(_supervise)(
-                    c, places[c.dataset], scoring, threads, execution, known.get(c.key), stop, halt
+                    c, places[c.dataset], scoring, threads, execution, known.get(c.key), stop, halt, workers
                 )
                 for c in cells
             )

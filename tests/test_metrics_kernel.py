@@ -137,3 +137,41 @@ def test_full_rank_rows_match_full_sort(case):
     out = np.empty((len(rows), len(d)), dtype=np.int32)
     full_ranks(d[rows].copy(), rows, out)
     np.testing.assert_array_equal(out, rank[rows])
+
+
+@pytest.mark.parametrize(
+    ("n", "d", "k", "grid"), [(300, 2, 10, True), (300, 3, 1, False), (120, 2, 118, True)]
+)
+def test_neighbour_lists_are_the_heads_of_a_full_sort(n, d, k, grid):
+    # nearest_neighbours (k-NN accuracy, stability) against numpy.lexsort of each whole row by
+    # (distance, index), the query left out; a coarse grid makes ties at the k-th place.
+    from harness.metrics._neighbours import nearest_neighbours
+    from harness.metrics._standard import standard_points
+
+    r = np.random.default_rng(n + k)
+    x = r.standard_normal((n, d))
+    x = np.round(x, 1) if grid else x
+    among = r.random(n) < 0.8
+    dist = DistanceRows(points=standard_points(x)).block(np.arange(n))
+    queries = np.arange(0, n, 3)
+    for mask in (None, among):
+        kk = k if mask is None else min(k, int(mask.sum()) - 1)
+        want = []
+        for q in queries:
+            row = dist[q].copy()
+            if mask is not None:
+                row[~mask] = np.inf
+            row[q] = np.inf
+            want.append(np.lexsort((np.arange(n), row))[:kk])
+        np.testing.assert_array_equal(nearest_neighbours(x, kk, queries, mask), np.array(want))
+
+
+def test_neighbour_lists_match_scikit_learn_without_ties():
+    # Continuous data have no equal distances, so scikit-learn's exact search must agree.
+    from sklearn.neighbors import NearestNeighbors
+
+    from harness.metrics._neighbours import nearest_neighbours
+
+    x = np.random.default_rng(5).standard_normal((400, 2))
+    theirs = NearestNeighbors(n_neighbors=8, algorithm="brute").fit(x).kneighbors(return_distance=False)
+    np.testing.assert_array_equal(nearest_neighbours(x, 8), theirs)

@@ -462,6 +462,33 @@ def rank_rows(
         )
 
 
+@numba.njit(cache=True, nogil=True)
+def head_rows(dist: np.ndarray, rows: np.ndarray, k: int, out: np.ndarray) -> None:
+    """The ``k`` nearest neighbours of each row's query in (distance, index) order.
+
+    Parameters
+    ----------
+    dist : ndarray of float64, shape (b, n)
+        Distance rows (C-contiguous); the query entries are overwritten with ``-inf``.
+    rows : ndarray of int, shape (b,)
+        Query point of each row (never its own neighbour).
+    k : int
+        Neighbours per row, at most the number of finite entries of a row less one.
+    out : ndarray of int, shape (b, k)
+        Filled with the neighbours' columns, nearest first.
+    """
+    b, n = dist.shape
+    scratch = np.empty(4 * n + 1)
+    cand = np.empty(2 * n + 1, dtype=np.int64)
+    head_d = np.empty(n)
+    head_i = np.empty(n, dtype=np.int64)
+    places = np.empty(2 * _COUNT_SORT_MAX, dtype=np.int32)
+    for r in range(b):
+        _head(dist[r], rows[r], k, scratch, cand, head_d, head_i, places)
+        for j in range(k):  # position 0 of a head is the query
+            out[r, j] = head_i[j + 1]
+
+
 #: Bits of the float32 key sorted per radix pass (three passes cover 32 bits).
 _RADIX_BITS = 11
 _RADIX = 1 << _RADIX_BITS

@@ -24,23 +24,6 @@ from ._standard import standard_points
 _BLOCK_ELEMENTS = 2**22
 
 
-def _smallest(dist: np.ndarray, k: int) -> np.ndarray:
-    """Columns of the ``k`` smallest entries of each row, in (value, column) order."""
-    b, n = dist.shape
-    kth = np.partition(dist, k - 1, axis=1)[:, k - 1 : k]
-    cand = np.flatnonzero(dist <= kth)  # every tie of the k-th value is a candidate
-    crow = cand // n
-    count = np.bincount(crow, minlength=b)
-    slot = np.arange(len(cand)) - np.repeat(np.cumsum(count) - count, count)
-    vals = np.full((b, int(count.max())), np.inf)
-    cols = np.full(vals.shape, n, dtype=np.intp)
-    vals[crow, slot] = dist.ravel()[cand]
-    cols[crow, slot] = cand - crow * n
-    # Candidates arrive in column order, so a stable sort by value breaks ties by index.
-    order = np.argsort(vals, axis=1, kind="stable")[:, :k]
-    return np.take_along_axis(cols, order, axis=1)
-
-
 def nearest_neighbours(
     points: np.ndarray, k: int, queries: np.ndarray | None = None, among: np.ndarray | None = None
 ) -> np.ndarray:
@@ -63,19 +46,20 @@ def nearest_neighbours(
     ndarray of int, shape (len(queries), k)
         Neighbour indices, nearest first.
     """
+    from ._kernel import head_rows  # numba loads on first use, not with the package
+
     n = points.shape[0]
     rows = DistanceRows(points=standard_points(np.asarray(points, dtype=np.float64)))
     idx = np.arange(n) if queries is None else np.asarray(queries, dtype=np.intp)
-    out = np.empty((len(idx), k), dtype=np.intp)
+    out = np.empty((len(idx), k), dtype=np.int64)
     step = max(1, _BLOCK_ELEMENTS // n)
     for start in range(0, len(idx), step):
         part = idx[start : start + step]
         dist = rows.block(part)
         if among is not None:
             dist[:, ~among] = np.inf
-        dist[np.arange(len(part)), part] = np.inf
-        out[start : start + len(part)] = _smallest(dist, k)
-    return out
+        head_rows(dist, part.astype(np.int64), k, out[start : start + len(part)])
+    return out.astype(np.intp, copy=False)
 
 
 def knn_overlap(a: np.ndarray, b: np.ndarray, k: int, queries: np.ndarray | None = None) -> float:

@@ -79,7 +79,7 @@ def write_report(run_dir: str | Path | RunFolder, *, quality: str = "mean_rank",
             fig.point_defect_maps, analysis, per_method, out / f"points_{_file_name(name)}.png"
         )
     # about half the drawing time each way on the quickstart suite (bench/bench_quickstart.py)
-    drawn = draw_figures(drawers, in_child=("heatmaps", "embeddings", "cd", "pareto"))
+    drawn = draw_figures(drawers, in_child=("heatmaps", "cd", "pareto"))
     folder.write_text("tables.md", tables_markdown(analysis))
     folder.write_text("tables.tex", tables_latex(analysis))
     page = folder.write_text(

@@ -1,4 +1,4 @@
-"""PNG figures of a report (matplotlib Agg + seaborn), each drawn from an :class:`Analysis`.
+"""PNG figures of a report (matplotlib Agg), each drawn from an :class:`Analysis`.
 
 Every function writes one file and returns its path, or ``None`` when the run
 has nothing to draw for it (say, no curves).
@@ -13,7 +13,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import seaborn as sns
 from matplotlib import rc_context
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
@@ -228,18 +227,11 @@ def rnx_curves(analysis: Analysis, path: Path) -> Path | None:
         fig, axes = _grid(rows, cols, figsize=(5.2 * cols, 3.3 * rows), squeeze=False)
         for ax, (ds_name, lines) in zip(axes.ravel(), panels):
             for method, curve in lines.items():
-                sns.lineplot(
-                    data=curve,
-                    x="K",
-                    y="R_NX",
-                    ax=ax,
-                    color=colours[method],
-                    lw=1.6,
-                    errorbar="sd",
-                    err_kws={"alpha": 0.18, "linewidth": 0},
-                    label=analysis.label(method),
-                    legend=False,
-                )
+                # mean over seeds with a band of one standard deviation (ddof 1) at each K
+                by_k = curve.groupby("K", sort=True)["R_NX"].agg(["mean", "std"])
+                k, mean, sd = by_k.index.to_numpy(float), by_k["mean"].to_numpy(), by_k["std"].to_numpy()
+                ax.plot(k, mean, color=colours[method], lw=1.6, label=analysis.label(method))
+                ax.fill_between(k, mean - sd, mean + sd, color=colours[method], alpha=0.18, linewidth=0)
             ax.set_xscale("log")
             ax.set_xlabel("K (neighbourhood size, log scale)")
             ax.set_ylabel("R_NX(K)")

@@ -44,11 +44,13 @@ class SammonMapping(BaseEstimator):
     ----------
     n_components : int, default=2
         Output dimension.
-    init : {"pca", "random"}, default="pca"
+    init : {"pca", "random"} or ndarray of shape (n, n_components), default="pca"
         Start configuration.  ``"pca"`` uses principal-component scores of the
         coordinates, or classical (Torgerson) scaling when ``metric`` is
         ``"precomputed"``; the two agree for Euclidean distances.
         ``"random"`` draws standard normal coordinates from ``random_state``.
+        An array is the start itself, in the units of the data (the
+        ``embedding_`` of an earlier fit on the same items continues that fit).
     max_iter : int, default=500
         Maximum number of pseudo-Newton iterations.
     tol : float, default=1e-9
@@ -73,7 +75,7 @@ class SammonMapping(BaseEstimator):
         self,
         n_components: int = 2,
         *,
-        init: str = "pca",
+        init: str | np.ndarray = "pca",
         max_iter: int = 500,
         tol: float = 1e-9,
         random_state: int | np.random.RandomState | None = None,
@@ -109,7 +111,9 @@ class SammonMapping(BaseEstimator):
         if not scale > 0:
             raise ValueError("Sammon mapping needs at least two distinct items; all distances are zero")
         D = D / scale
-        if self.init == "pca":
+        if not isinstance(self.init, str):
+            Y = np.ldexp(self._start_array(D.shape[0]), -exponent) / scale
+        elif self.init == "pca":
             Y = (
                 classical_scaling(D, self.n_components)
                 if self.metric == "precomputed"
@@ -132,14 +136,29 @@ class SammonMapping(BaseEstimator):
     def _check_params(self) -> None:
         if not (isinstance(self.n_components, (int, np.integer)) and self.n_components >= 1):
             raise ValueError(f"n_components must be a positive integer, got {self.n_components!r}")
-        if self.init not in ("pca", "random"):
-            raise ValueError(f"init must be 'pca' or 'random', got {self.init!r}")
+        if isinstance(self.init, str) and self.init not in ("pca", "random"):
+            raise ValueError(f"init must be 'pca', 'random' or an array, got {self.init!r}")
         if self.metric not in ("euclidean", "precomputed"):
             raise ValueError(f"metric must be 'euclidean' or 'precomputed', got {self.metric!r}")
         if not (isinstance(self.max_iter, (int, np.integer)) and self.max_iter >= 1):
             raise ValueError(f"max_iter must be a positive integer, got {self.max_iter!r}")
         if not self.tol >= 0:
             raise ValueError(f"tol must be >= 0, got {self.tol!r}")
+
+    def _start_array(self, n: int) -> np.ndarray:
+        """``init`` as a float array, refused unless it is finite with shape (n, n_components)."""
+        try:
+            start = np.asarray(self.init, dtype=np.float64)
+        except (TypeError, ValueError):
+            raise ValueError(f"init must be 'pca', 'random' or an array, got {self.init!r}") from None
+        if start.shape != (n, self.n_components):
+            raise ValueError(
+                f"an init array must have shape (n, n_components) = ({n}, {self.n_components}), "
+                f"got {start.shape}"
+            )
+        if not np.all(np.isfinite(start)):
+            raise ValueError("the init array contains NaN or infinite values")
+        return start
 
     def _distances(self, X: np.ndarray) -> np.ndarray:
         if X.ndim != 2 or X.shape[0] < 2:

@@ -86,7 +86,7 @@ def test_ignores_seed_follows_the_parameters() -> None:
     assert get_method_spec("pca").ignores_seed({})
     assert get_method_spec("mds").ignores_seed({"init": "classical_mds"})
     assert not get_method_spec("mds").ignores_seed({"init": "random"})
-    assert not get_method_spec("isomap").ignores_seed({})  # ARPACK start vector: see builtin.py
+    assert get_method_spec("isomap").ignores_seed({})  # a fixed ARPACK start: see methods/_isomap.py
     assert not get_method_spec("random_projection").ignores_seed({})
     assert get_method_spec("sammon").ignores_seed({"init": "pca"})
     assert not get_method_spec("sammon").ignores_seed({"init": "random"})
@@ -211,3 +211,50 @@ def test_cells_with_a_held_out_split_are_never_copied(tmp_path: Path) -> None:
     assert (s["copy_of"].fillna("") == "").all()
     pca = s[(s.method == "pca") & (s.dataset == "iris")].set_index("seed")
     assert pca.loc[0, "heldout_trustworthiness@5"] != pca.loc[1, "heldout_trustworthiness@5"]
+
+
+_ISOMAP_FIT = """
+import hashlib, sys
+import numpy as np
+from harness.datasets._registry import load_dataset
+from harness.methods import METHODS
+np.random.seed(int(sys.argv[1]))  # another state of the global generator in each process
+before = np.random.get_state()[1].copy()
+X = load_dataset("digits").X
+Y = METHODS["isomap"].build(2, int(sys.argv[2]), False, n_neighbors=10).fit_transform(X)
+assert np.array_equal(np.random.get_state()[1], before)  # the caller's global state is left as it was
+print(hashlib.sha256(Y.tobytes()).hexdigest())
+"""
+
+
+def test_isomap_gives_the_same_bytes_in_every_process_and_for_every_seed() -> None:
+    # plumbing of our own: digits has 1,797 points, so scikit-learn's Isomap uses ARPACK,
+    # whose start vector it draws from NumPy's global generator
+    import subprocess
+    import sys
+
+    digests = {
+        subprocess.run(
+            [sys.executable, "-c", _ISOMAP_FIT, str(state), str(seed)],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+        for state, seed in ((0, 0), (1, 0), (2, 7))
+    }
+    assert len(digests) == 1
+
+
+def test_isomap_with_a_fixed_start_is_scikit_learns_isomap() -> None:
+    # scikit-learn's Isomap with the dense eigensolver (no start vector) is the reference: the
+    # same embedding up to the sign of each axis (eigenvectors have no sign) and rounding
+    from sklearn.datasets import load_digits
+    from sklearn.manifold import Isomap
+
+    from harness.methods.builtin import build_isomap
+
+    x = load_digits().data[:600]
+    ours = build_isomap(2, 0, False, n_neighbors=10).fit_transform(x)
+    theirs = Isomap(n_components=2, n_neighbors=10, eigen_solver="dense").fit_transform(x)
+    signs = np.sign(np.sum(ours * theirs, axis=0))
+    np.testing.assert_allclose(ours, theirs * signs, rtol=0, atol=1e-6 * np.abs(theirs).max())

@@ -17,6 +17,7 @@ from sklearn.random_projection import GaussianRandomProjection
 from ..errors import InputError
 from ..params import Param, at_least, between
 from ._classical import ClassicalScaling
+from ._isomap import FixedStartIsomap
 from ._registry import register_method
 from ._tsne import ExactStartTSNE
 from .parametric import ParametricMDS, ParametricSammon, ParametricTSNE
@@ -186,14 +187,13 @@ def build_sammon(
     accepts_distances=True,
     randomized=False,
     quadratic_memory=True,
-    # Not fitted once for all seeds: scikit-learn's ARPACK start vector comes from the unseeded
-    # global generator, so two processes give embeddings that differ in the last bits.
-    seed_free=lambda params, precomputed: False,
+    # The eigensolver's start is fixed (harness/methods/_isomap.py), so the seed is unused.
+    seed_free=lambda params, precomputed: True,
     source="Tenenbaum, de Silva and Langford 2000 (scikit-learn Isomap)",
 )
 def build_isomap(n_components: int, seed: int, precomputed: bool, *, n_neighbors: int) -> Isomap:
-    """Isomap on a k-nearest-neighbour graph."""
-    return Isomap(
+    """Isomap on a k-nearest-neighbour graph, its eigensolver started from a fixed vector."""
+    return FixedStartIsomap(
         n_components=n_components,
         n_neighbors=n_neighbors,
         metric="precomputed" if precomputed else "minkowski",

@@ -133,9 +133,12 @@ def main() -> None:
     top2 = sum(1 for r in rows if r[5] is not None and r[5] <= 2)
     third = sum(1 for r in rows if r[3] <= r[2] / 3)
     both = sum(1 for r in rows if r[5] is not None and r[5] <= 2 and r[3] <= r[2] / 3)
+    third_cells = sum(1 for r in rows if r[8] <= r[7] / 3)
+    both_cells = sum(1 for r in rows if r[5] is not None and r[5] <= 2 and r[8] <= r[7] / 3)
     print(
         f"\npick in the exhaustive top 2: {top2} of {len(rows)}; "
-        f"choose within a third of the wall time: {third} of {len(rows)}; both: {both} of {len(rows)}"
+        f"choose within a third of the wall time: {third} of {len(rows)}; both: {both} of {len(rows)}; "
+        f"within a third of the cell seconds: {third_cells} of {len(rows)}; both: {both_cells} of {len(rows)}"
     )
 
 

@@ -436,3 +436,25 @@ def test_equal_mean_ranks_go_to_the_better_place_at_the_rung_before():
     assert [s.name for s in plain] == ["cheap", "mid", "dear"]  # no history: the cheaper fit
     told = standings(ranked, {}, ["cheap", "mid", "dear"], {"dear": 1, "cheap": 2, "mid": 3})
     assert [s.name for s in told] == ["dear", "cheap", "mid"] and [s.place for s in told] == [1, 2, 3]
+
+
+def test_seed_free_finalists_differ_exactly_not_beyond_noise():
+    # plumbing of our own wording rule: with one value per seed on both sides there is no seed
+    # noise, so the recommendation says the differences are exact instead of quoting Welch p
+    from harness.choose.pool import Candidate
+    from harness.choose.recommend import Recommendation, Separation, recommendation_text
+
+    final = [
+        {"name": n, "place": i, "mean_rank": 2.0, "measures": {}, "low": {}, "high": {}}
+        for i, n in enumerate(("a", "b"), 1)
+    ]
+
+    def text(exact: bool) -> str:
+        seps = [Separation("t", 0.9, 0.8, 0.0, 1.0, exact), Separation("c", 0.7, 0.8, 1.0, 0.0, exact)]
+        pool = {n: Candidate(n, "pca") for n in ("a", "b")}
+        rec = Recommendation("a", pool, final, True, seps, [], {"t": 1.0}, "local", 60.0, 1.0, [])
+        return recommendation_text(rec)
+
+    assert "each is better exactly (both are seed-free) on some measure" in text(True)
+    assert "the difference is exact" in text(True) and "Welch p" not in text(True)
+    assert "each is better beyond seed noise on some measure" in text(False) and "Welch p" in text(False)

@@ -40,6 +40,8 @@ class Separation:
     runner_up: float
     p_worse: float
     p_better: float
+    #: Both sides gave one value for every seed (seed-free fits): a difference is exact, not noise.
+    exact: bool = False
 
 
 @dataclass
@@ -197,15 +199,19 @@ def _separation_lines(rec: Recommendation) -> list[str]:
         return [f"Winner against runner-up ({rec.runner_up}): not tested (one seed at this rung).", ""]
     parts = [
         f"{s.measure}: winner {s.winner:.4g}, runner-up {s.runner_up:.4g} "
-        f"(Welch p runner-up worse = {s.p_worse:.3g}, better = {s.p_better:.3g})"
+        + (
+            "(the same value for every seed on both sides: the difference is exact)"
+            if s.exact
+            else f"(Welch p runner-up worse = {s.p_worse:.3g}, better = {s.p_better:.3g})"
+        )
         for s in rec.separations
     ]
+    # "beyond seed noise" only where there is seed noise: seed-free finalists differ exactly
+    beyond = "exactly (both are seed-free)" if all(s.exact for s in rec.separations) else "beyond seed noise"
     if rec.separable:
-        verdict = (
-            "separable: the runner-up is worse beyond seed noise on at least one measure, better on none"
-        )
+        verdict = f"separable: the runner-up is worse {beyond} on at least one measure, better on none"
     elif any(s.p_worse < 0.05 for s in rec.separations):
-        verdict = "not separable: each is better beyond seed noise on some measure (they trade off)"
+        verdict = f"not separable: each is better {beyond} on some measure (they trade off)"
     else:
         verdict = "not separable over seeds: either is defensible on these measures"
     return [f"Winner against runner-up ({rec.runner_up}): {verdict}.", "", *[f"- {p}" for p in parts], ""]

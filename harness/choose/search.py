@@ -553,7 +553,8 @@ class _Session:
             higher = higher_is_better(column)
             worse = welch_test(wb, wa, higher).p_worse
             better = welch_test(wa, wb, higher).p_worse
-            out.append(Separation(column, float(wa.mean()), float(wb.mean()), worse, better))
+            exact = bool(wa.min() == wa.max() and wb.min() == wb.max())
+            out.append(Separation(column, float(wa.mean()), float(wb.mean()), worse, better, exact))
         return out
 
     def _write_chosen(self, final: list[dict[str, Any]]) -> None:

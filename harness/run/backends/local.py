@@ -434,15 +434,17 @@ def _supervise(
         worker = _Worker(workers.with_output)
         worker.conn.send((cell, where, scoring, threads, known, execution.plugin_roots))
     worker.cells += 1
-    result, answered = _await(cell, worker.proc, worker.conn, execution.time_limit, stop, halt)
-    if answered and _reusable(cell, result, worker):
+    answered = keep = False
+    try:
+        result, answered = _await(cell, worker.proc, worker.conn, execution.time_limit, stop, halt)
+        keep = answered and _reusable(cell, result, worker)
+    finally:  # whatever happened, a worker that is not kept is ended, and the cell's output kept
+        if not keep:
+            worker.retire(answered)
         if worker.output is not None:
             write_log(execution.log_dir, cell.key, worker.output.next_cell(_OUTPUT_GRACE))
+    if keep:
         workers.give_back(worker)
-        return result
-    worker.retire(answered)
-    if worker.output is not None:
-        write_log(execution.log_dir, cell.key, worker.output.next_cell(_OUTPUT_GRACE))
     return result
 
 

@@ -529,6 +529,37 @@ def test_fuzzed_cache_entry_is_served_intact_or_not_at_all(shared, planned, tmp_
         assert served.values == original.values and np.array_equal(served.embedding, original.embedding)
 
 
+def _unclosed_bracket_in_header(path: Path) -> None:
+    """A .npy header whose padding holds '[' (NumPy's header parser then raises a TokenError)."""
+    data = bytearray(path.read_bytes())
+    end = data.index(b"}") + 1
+    data[end + 8] = ord("[")
+    path.write_bytes(bytes(data))
+
+
+def test_a_npy_header_that_does_not_parse_is_refused_everywhere(shared, planned, tmp_path_factory):
+    # found by the fuzz test above: NumPy reports such a header with tokenize.TokenError, which
+    # is neither a ValueError nor an OSError; every reader must still fail closed, in one line
+    from harness.npyfile import load_npy
+    from harness.run.cache import EmbeddingCache, cache_key
+
+    cells, rows, _ = planned
+    root = tmp_path_factory.mktemp("bad-header")
+    shutil.copytree(shared["cache"], root / "c")
+    key = cache_key(cells[0])
+    npy = root / "c" / key[:2] / f"{key}.npy"
+    _unclosed_bracket_in_header(npy)
+    with pytest.raises(ValueError, match=r"not a readable \.npy array"):
+        load_npy(npy)
+    assert EmbeddingCache(root / "c").get(cells[0], rows[cells[0].dataset]) is None  # fitted again
+    run = root / "run"
+    shutil.copytree(shared["run"], run)
+    first = sorted((run / "embeddings").iterdir())[0]
+    _unclosed_bracket_in_header(first)
+    with pytest.raises(InputError, match=r"expected a \.npy array"):
+        RunFolder.open(run).embedding(first.stem)
+
+
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(
     part=st.sampled_from(["cells", "embeddings", "curves", "manifest.json"]),

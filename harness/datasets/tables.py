@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError, suggest
+from ..npyfile import load_npy
 from ..params import Param, at_least
 from ..text import is_number_text
 from ._common import checked, seed_param, standardise, standardise_param, stratified_rows
@@ -85,9 +86,7 @@ def _read_npy(path: str) -> np.ndarray:
     with open(path, "rb") as fh:
         if fh.read(6) != b"\x93NUMPY":
             raise InputError(path, "a NumPy .npy file; it does not start with the .npy header")
-    arr = checked(
-        lambda: np.load(path, allow_pickle=False), path, "a NumPy .npy array that loads without pickle"
-    )
+    arr = checked(lambda: load_npy(path), path, "a NumPy .npy array that loads without pickle")
     if not isinstance(arr, np.ndarray):
         raise InputError(path, "a single array (.npy), not an archive")
     if np.issubdtype(arr.dtype, np.complexfloating):

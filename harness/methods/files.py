@@ -19,6 +19,7 @@ import pandas as pd
 
 from ..datasets._types import Dataset
 from ..errors import InputError
+from ..npyfile import load_npy
 from ..params import Param
 from ._registry import register_method
 
@@ -80,7 +81,7 @@ def read_embedding(
         if columns or id_column:
             raise InputError(path, "no 'columns' or 'id_column' for a .npy array (it has no header)")
         try:
-            arr = np.load(path, allow_pickle=False)
+            arr = load_npy(path)
         except (OSError, ValueError) as exc:
             raise InputError(path, f"a NumPy .npy array that loads without pickle ({exc})") from None
         return _coordinates(arr, path), None

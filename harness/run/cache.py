@@ -38,6 +38,7 @@ import platformdirs
 from ..config import CellStatus, Scoring
 from ..errors import InputError
 from ..methods import METHODS
+from ..npyfile import load_npy
 from .atomic import write_json, write_npy, write_text
 from .cells import Cell, CellResult, KnownFit
 from .integrity import FORMAT, array_facts, array_problem, seal, seal_problem, value_problem, values_problem
@@ -215,7 +216,7 @@ class EmbeddingCache:
             problem = seal_problem(info)
             if problem is None and info.get("key") != key:
                 problem = f"it was written for key {info.get('key')!r}"
-            embedding = None if problem else np.load(npy, allow_pickle=False)
+            embedding = None if problem else load_npy(npy)
             if problem is None:
                 problem = array_problem(embedding, info.get("embedding"), rows, cell.dimensions)
             if problem is None:

@@ -44,6 +44,7 @@ import pandas as pd
 from ..config import STORED_STATUSES, CellStatus
 from ..errors import InputError
 from ..metrics import MEASURES, measure_stem
+from ..npyfile import load_npy
 from ..suite import Suite, parse_suite
 from ..text import exception_line, params_text
 from . import atomic
@@ -619,7 +620,7 @@ class RunFolder:
         if record is None or record.get("embedding") is None or not path.exists():
             return None
         try:
-            array = np.load(path, allow_pickle=False)
+            array = load_npy(path)
         except (OSError, ValueError, EOFError) as exc:
             raise InputError(
                 f"{self.where}/embeddings/{path.name}", f"expected a .npy array ({exc})"
